@@ -1,0 +1,31 @@
+# metertop: set-up, demo, tests and benchmarks.
+# `make demo` and `make test` create .venv when it is missing and install
+# metertop into it with every optional extra.
+
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.metertop-installed
+
+.PHONY: demo test bench install clean-venv check-boost
+
+install: $(STAMP)
+
+$(STAMP): pyproject.toml
+	@bash .ci/ensure_boost.sh
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e ".[all]"
+	@touch $(STAMP)
+
+check-boost:
+	@bash .ci/ensure_boost.sh
+
+demo: $(STAMP)
+	$(BIN)/metertop analyse demo_rhythms/*.mid demo_rhythms/*.csv
+
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+clean-venv:
+	rm -rf $(VENV)

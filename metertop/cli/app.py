@@ -1,0 +1,89 @@
+"""The ``metertop`` commands."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+
+from ..errors import MetertopError
+
+app = typer.Typer(
+    name="metertop",
+    help="Propose the metre (subdivision, beat, bar, hypermeasure) that note onsets imply.",
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+)
+
+
+def _fail(message: str, code: int = 2) -> None:
+    typer.echo(f"metertop: error: {message}", err=True)
+    raise typer.Exit(code)
+
+
+def _version(value: bool) -> None:
+    if value:
+        from .._version import __version__
+
+        typer.echo(f"metertop {__version__}")
+        raise typer.Exit(0)
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True, help="Print the version and exit."),
+) -> None:
+    """metertop: the metre of music from its note onsets, found with persistent homology."""
+
+
+@app.command("analyse")
+def analyse_cmd(
+    files: List[Path] = typer.Argument(..., help="MIDI files (.mid) or onset lists (.csv, .tsv, .txt, .json)."),
+    json_out: bool = typer.Option(False, "--json", help="Print one JSON line per file instead of a summary."),
+    track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
+    merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
+    engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
+) -> None:
+    """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
+    from ..export import to_json_line
+    from ..persistence import ENGINES
+    from ..pipeline import Settings, analyse
+    from ..report import summary
+
+    if engine not in ENGINES:
+        _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
+    if not merge_ms >= 0 or merge_ms > 1000:
+        _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
+    settings = Settings(merge_window_s=merge_ms / 1000.0, engine=engine)
+    failed = 0
+    for i, path in enumerate(files):
+        try:
+            result = analyse(path, tracks=list(track) if track else None, settings=settings)
+        except MetertopError as exc:
+            typer.echo(f"metertop: error: {exc}", err=True)
+            failed += 1
+            continue
+        if json_out:
+            typer.echo(to_json_line(result))
+        else:
+            if i:
+                typer.echo("")
+            typer.echo(summary(result, name=str(path) if len(files) > 1 else None))
+    if failed:
+        raise typer.Exit(2)
+
+
+@app.command("tracks")
+def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
+    """List the note-bearing tracks of a MIDI file, with the indices that --track takes."""
+    from ..load import list_tracks
+
+    try:
+        rows = list_tracks(file) if file.exists() else _fail(f"{file}: no such file")
+    except MetertopError as exc:
+        _fail(str(exc))
+    for index, name, is_drum, n_notes in rows:
+        typer.echo(f"{index:3d}  {'drums ' if is_drum else 'pitched'}  {n_notes:6d} notes  {name}")

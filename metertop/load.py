@@ -1,0 +1,343 @@
+"""Load note onsets from Standard MIDI Files and plain onset lists.
+
+Conventions
+-----------
+- Times are seconds, float64, sorted ascending.
+- ``pitch`` is a MIDI note number, or -1 where the input has none.
+- ``velocity`` is 1..127, or NaN where the input has none.
+- ``weight`` is a user-supplied accent (onset lists only), NaN elsewhere.
+- ``is_drum`` marks notes from a General MIDI drum channel (channel 10).
+
+Onset lists may be:
+
+- CSV or TSV with a header naming ``time_s`` (required) and optionally
+  ``weight`` and ``pitch``;
+- a single column of seconds, no header;
+- JSON: an array of numbers, or of objects with ``time_s`` and optionally
+  ``weight`` and ``pitch``.
+
+Exact duplicates (same time and pitch) are dropped on loading.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "list_tracks", "notes_from_onsets", "MIDI_SUFFIXES", "ONSET_SUFFIXES"]
+
+MIDI_SUFFIXES = (".mid", ".midi", ".smf", ".kar")
+ONSET_SUFFIXES = (".csv", ".tsv", ".txt", ".json")
+# Far beyond any real take (about 28 hours); guards against garbage values.
+_MAX_TIME_S = 1.0e5
+
+
+@dataclass(frozen=True)
+class TimeSignatureEvent:
+    """A time-signature meta event found in the input."""
+
+    time_s: float
+    numerator: int
+    denominator: int
+
+    def __str__(self) -> str:
+        return f"{self.numerator}/{self.denominator}"
+
+
+@dataclass(frozen=True)
+class NoteTable:
+    """Notes as parallel arrays, sorted by onset.
+
+    Parameters
+    ----------
+    onsets_s, durations_s, pitches, velocities, weights, is_drum, track
+        Parallel arrays of equal length (see module conventions).
+    time_signatures
+        Time-signature meta events of a MIDI file, in order.
+    source
+        ``"midi"`` or ``"onsets"``.
+    track_names
+        Name of each track index used in ``track``.
+    """
+
+    onsets_s: np.ndarray
+    durations_s: np.ndarray
+    pitches: np.ndarray
+    velocities: np.ndarray
+    weights: np.ndarray
+    is_drum: np.ndarray
+    track: np.ndarray
+    time_signatures: tuple[TimeSignatureEvent, ...] = ()
+    source: str = "onsets"
+    track_names: tuple[str, ...] = field(default_factory=tuple)
+
+    def __post_init__(self) -> None:
+        n = len(self.onsets_s)
+        for name in ("durations_s", "pitches", "velocities", "weights", "is_drum", "track"):
+            if len(getattr(self, name)) != n:
+                raise ValueError(f"NoteTable.{name} has {len(getattr(self, name))} entries, expected {n}")
+        if n and np.any(np.diff(self.onsets_s) < 0):
+            raise ValueError("NoteTable.onsets_s must be sorted")
+
+    def __len__(self) -> int:
+        return len(self.onsets_s)
+
+
+def _finish(onsets_s, durations_s, pitches, velocities, weights, is_drum, track, **meta) -> NoteTable:
+    """Sort, drop exact duplicates (same time and pitch) and build the table."""
+    onsets_s = np.asarray(onsets_s, dtype=np.float64)
+    pitches = np.asarray(pitches, dtype=np.int64)
+    order = np.lexsort((pitches, onsets_s))
+    arrays = [np.asarray(a)[order] for a in (onsets_s, durations_s, pitches, velocities, weights, is_drum, track)]
+    t, p = arrays[0], arrays[2]
+    keep = np.ones(len(t), dtype=bool)
+    keep[1:] = ~((t[1:] == t[:-1]) & (p[1:] == p[:-1]))
+    arrays = [a[keep] for a in arrays]
+    return NoteTable(
+        onsets_s=arrays[0].astype(np.float64),
+        durations_s=arrays[1].astype(np.float64),
+        pitches=arrays[2].astype(np.int64),
+        velocities=arrays[3].astype(np.float64),
+        weights=arrays[4].astype(np.float64),
+        is_drum=arrays[5].astype(bool),
+        track=arrays[6].astype(np.int64),
+        **meta,
+    )
+
+
+def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
+    """Build a :class:`NoteTable` from onset times in seconds.
+
+    Parameters
+    ----------
+    onsets_s : array_like of float
+        Onset times in seconds, any order, all finite and >= 0.
+    weights : array_like of float, optional
+        Accent of each onset (any positive scale).
+    pitches : array_like of int, optional
+        MIDI pitch of each onset, used to tell duplicates from chords.
+
+    Examples
+    --------
+    >>> notes = notes_from_onsets([0.5, 0.0, 0.5])
+    >>> notes.onsets_s.tolist()
+    [0.0, 0.5]
+    """
+    t = np.asarray(onsets_s, dtype=np.float64).ravel()
+    n = len(t)
+    _check_times(t, "onset")
+    w = np.full(n, np.nan) if weights is None else np.asarray(weights, dtype=np.float64).ravel()
+    if len(w) != n:
+        raise InputError(f"got {n} onsets but {len(w)} weights")
+    if np.any(~np.isfinite(w) & ~np.isnan(w)) or np.any(w < 0):
+        raise InputError("weights must be finite and not negative")
+    p = np.full(n, -1, dtype=np.int64) if pitches is None else np.asarray(pitches).astype(np.int64).ravel()
+    if len(p) != n:
+        raise InputError(f"got {n} onsets but {len(p)} pitches")
+    return _finish(t, np.full(n, np.nan), p, np.full(n, np.nan), w, np.zeros(n, bool), np.zeros(n, np.int64))
+
+
+def _check_times(t: np.ndarray, what: str) -> None:
+    if np.any(np.isnan(t)):
+        raise InputError(f"{what} times contain NaN")
+    if np.any(~np.isfinite(t)) or np.any(np.abs(t) > _MAX_TIME_S):
+        raise InputError(f"{what} times must be finite seconds below {_MAX_TIME_S:g}; did you supply ticks or milliseconds?")
+    if np.any(t < 0):
+        raise InputError(f"{what} times must not be negative (found {t.min():g} s)")
+
+
+def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> NoteTable:
+    """Read notes from a Standard MIDI File or an onset list.
+
+    Parameters
+    ----------
+    path
+        A ``.mid``/``.midi`` file, or a ``.csv``/``.tsv``/``.txt``/``.json``
+        onset list.
+    tracks
+        MIDI only: indices of the tracks to keep (as listed by
+        :func:`list_tracks`); all tracks by default.
+
+    Raises
+    ------
+    InputError
+        If the file is missing, empty, unreadable or holds no notes.
+    """
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise InputError(f"{path}: is a folder, not a file")
+    if os.path.getsize(path) == 0:
+        raise InputError(f"{path}: file is empty")
+    suffix = os.path.splitext(path)[1].lower()
+    with open(path, "rb") as fh:
+        head = fh.read(4)
+    if head == b"MThd" or suffix in MIDI_SUFFIXES:
+        return _load_midi(path, tracks)
+    if tracks:
+        raise InputError(f"{path}: track selection applies to MIDI files only")
+    if suffix in ONSET_SUFFIXES or suffix == "":
+        return _load_onset_list(path)
+    raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}) or an onset list ({', '.join(ONSET_SUFFIXES)})")
+
+
+def _open_midi(path: str):
+    import pretty_midi  # deferred: pulls in mido, costs start-up time
+
+    try:
+        return pretty_midi.PrettyMIDI(path)
+    except Exception as exc:  # pretty_midi/mido raise many types on corrupt input
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(f"{path}: not a readable Standard MIDI File ({msg})") from None
+
+
+def list_tracks(path: str | os.PathLike) -> list[tuple[int, str, bool, int]]:
+    """List the note-bearing tracks of a MIDI file: ``(index, name, is_drum, n_notes)``."""
+    pm = _open_midi(os.fspath(path))
+    return [(i, inst.name or f"program {inst.program}", bool(inst.is_drum), len(inst.notes)) for i, inst in enumerate(pm.instruments)]
+
+
+def _load_midi(path: str, tracks: list[int] | None) -> NoteTable:
+    pm = _open_midi(path)
+    insts = pm.instruments
+    if tracks:
+        bad = [i for i in tracks if not 0 <= i < len(insts)]
+        if bad:
+            raise InputError(f"{path}: no track {bad[0]}; the file has tracks 0..{len(insts) - 1}")
+        chosen = [(i, insts[i]) for i in sorted(set(tracks))]
+    else:
+        chosen = list(enumerate(insts))
+    cols: list[list] = [[] for _ in range(7)]
+    for idx, inst in chosen:
+        for note in inst.notes:
+            cols[0].append(note.start)
+            cols[1].append(max(note.end - note.start, 0.0))
+            cols[2].append(note.pitch)
+            cols[3].append(note.velocity)
+            cols[4].append(np.nan)
+            cols[5].append(inst.is_drum)
+            cols[6].append(idx)
+    if not cols[0]:
+        raise InputError(f"{path}: the MIDI file holds no notes" + (" in the chosen tracks" if tracks else ""))
+    t = np.asarray(cols[0], dtype=np.float64)
+    if np.any(~np.isfinite(t)) or np.any(t > _MAX_TIME_S):
+        raise InputError(f"{path}: note times out of range (tempo events may be corrupt)")
+    sigs = tuple(TimeSignatureEvent(float(ts.time), int(ts.numerator), int(ts.denominator)) for ts in pm.time_signature_changes)
+    names = tuple(inst.name or f"program {inst.program}" for inst in insts)
+    return _finish(*cols, time_signatures=sigs, source="midi", track_names=names)
+
+
+def _parse_float(text: str, where: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(f"{where}: '{text}' is not a number") from None
+    if math.isnan(value):
+        raise InputError(f"{where}: value is NaN")
+    return value
+
+
+def _load_onset_list(path: str) -> NoteTable:
+    try:
+        with open(path, "rb") as fh:
+            raw = fh.read()
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not UTF-8 text; onset lists must be UTF-8 CSV, TSV or JSON") from None
+    stripped = text.strip()
+    if not stripped:
+        raise InputError(f"{path}: file holds no onsets")
+    if stripped[0] in "[{" or path.lower().endswith(".json"):
+        return _parse_json(path, stripped)
+    return _parse_table(path, stripped)
+
+
+def _parse_json(path: str, text: str) -> NoteTable:
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise InputError(f"{path}: invalid JSON ({exc.msg} at line {exc.lineno})") from None
+    if isinstance(data, dict) and "onsets" in data:
+        data = data["onsets"]
+    if not isinstance(data, list) or not data:
+        raise InputError(f"{path}: expected a non-empty JSON array of onset times or of objects with 'time_s'")
+    times, weights, pitches = [], [], []
+    for i, item in enumerate(data):
+        where = f"{path}: item {i}"
+        if isinstance(item, dict):
+            if "time_s" not in item:
+                raise InputError(f"{where}: object has no 'time_s'")
+            times.append(_json_number(item["time_s"], where))
+            weights.append(_json_number(item["weight"], where) if item.get("weight") is not None else np.nan)
+            pitches.append(int(_json_number(item["pitch"], where)) if item.get("pitch") is not None else -1)
+        else:
+            times.append(_json_number(item, where))
+            weights.append(np.nan)
+            pitches.append(-1)
+    return _onsets_or_error(path, times, weights, pitches)
+
+
+def _json_number(value, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{where}: {value!r} is not a number")
+    if isinstance(value, float) and math.isnan(value):
+        raise InputError(f"{where}: value is NaN")
+    return float(value)
+
+
+def _parse_table(path: str, text: str) -> NoteTable:
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    first = lines[0]
+    delimiter = "\t" if "\t" in first else ("," if "," in first else (";" if ";" in first else None))
+    rows = list(csv.reader(io.StringIO("\n".join(lines)), delimiter=delimiter)) if delimiter else [ln.split() for ln in lines]
+    rows = [[c.strip() for c in r] for r in rows]
+    header = rows[0]
+    has_header = any(c and not _looks_numeric(c) for c in header)
+    if has_header:
+        names = [c.lower() for c in header]
+        if "time_s" not in names:
+            raise InputError(f"{path}: header has no 'time_s' column (found: {', '.join(header)})")
+        ti = names.index("time_s")
+        wi = names.index("weight") if "weight" in names else None
+        pi = names.index("pitch") if "pitch" in names else None
+        body, first_line = rows[1:], 2
+    else:
+        if len(header) != 1:
+            raise InputError(f"{path}: a file without a header must hold one column of seconds; add a header with 'time_s'")
+        ti, wi, pi = 0, None, None
+        body, first_line = rows, 1
+    if not body:
+        raise InputError(f"{path}: file holds no onsets")
+    times, weights, pitches = [], [], []
+    for k, row in enumerate(body):
+        where = f"{path}: line {k + first_line}"
+        if len(row) <= ti or row[ti] == "":
+            raise InputError(f"{where}: missing time_s value")
+        times.append(_parse_float(row[ti], f"{where}, time_s"))
+        weights.append(_parse_float(row[wi], f"{where}, weight") if wi is not None and len(row) > wi and row[wi] != "" else np.nan)
+        pitches.append(int(_parse_float(row[pi], f"{where}, pitch")) if pi is not None and len(row) > pi and row[pi] != "" else -1)
+    return _onsets_or_error(path, times, weights, pitches)
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _onsets_or_error(path: str, times, weights, pitches) -> NoteTable:
+    try:
+        return notes_from_onsets(times, weights, pitches)
+    except InputError as exc:
+        raise InputError(f"{path}: {exc}") from None

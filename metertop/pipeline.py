@@ -1,0 +1,198 @@
+"""The analysis pipeline, one straight line from input to result.
+
+``load -> events -> accents -> pulse & tempo curve -> warp to pulse time ->
+cycle scan -> metric tree -> result``
+
+Conventions
+-----------
+:func:`analyse` accepts a path, a :class:`~metertop.load.NoteTable`, or an
+array of onset times in seconds, and returns a frozen
+:class:`~metertop.result.MetreResult`.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .accents import AccentMix, event_weights
+from .errors import InputError
+from .events import merge_events
+from .load import NoteTable, load_notes, notes_from_onsets
+from .result import Level, MetreResult, Reading, Segment, make_result
+from .tempo import PulseTrack, TempoSettings, track_pulse
+from .tree import MetricTree, TreeSettings, build_tree
+
+__all__ = ["Settings", "Analysis", "analyse", "analyse_detailed", "MIN_EVENTS"]
+
+# Two bars of the slowest common metre need at least this many events.
+MIN_EVENTS = 8
+MIN_SPAN_S = 1.5
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Every tunable of the pipeline, grouped by stage."""
+
+    merge_window_s: float = 0.035
+    engine: str = "dionysus"
+    accents: AccentMix = field(default_factory=AccentMix)
+    tempo: TempoSettings = field(default_factory=TempoSettings)
+    tree: TreeSettings = field(default_factory=TreeSettings)
+    n_alternatives: int = 5
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """The result together with the intermediate stages (for plots and checks)."""
+
+    result: MetreResult
+    times_s: np.ndarray
+    weights: np.ndarray
+    pulse: PulseTrack
+    tree: MetricTree
+
+
+def _as_notes(source, tracks) -> NoteTable:
+    if isinstance(source, NoteTable):
+        return source
+    if isinstance(source, (str, os.PathLike)):
+        return load_notes(source, tracks=tracks)
+    try:
+        arr = np.asarray(source, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputError("expected a file path, a NoteTable or an array of onset times in seconds") from None
+    return notes_from_onsets(arr.ravel())
+
+
+def analyse(source, *, tracks: list[int] | None = None, settings: Settings = Settings()) -> MetreResult:
+    """Propose the metric tree of a piece.
+
+    Parameters
+    ----------
+    source : str, os.PathLike, NoteTable or array_like of float
+        A MIDI file or onset list, notes already loaded, or onset times in
+        seconds.
+    tracks : list of int, optional
+        MIDI track indices to keep; all by default.
+    settings : Settings
+
+    Returns
+    -------
+    MetreResult
+
+    Raises
+    ------
+    InputError
+        For unreadable input or too few onsets.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> bars = np.arange(16) * 1.5               # a bar every 1.5 s
+    >>> onsets = np.sort(np.concatenate([bars, bars + 0.5, bars + 1.0]))
+    >>> weights = np.tile([3.0, 1.0, 1.0], 16)   # the first of three beats is loud
+    >>> from metertop.load import notes_from_onsets
+    >>> analyse(notes_from_onsets(onsets, weights)).time_signature
+    '3/4'
+    """
+    return analyse_detailed(source, tracks=tracks, settings=settings).result
+
+
+def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Settings = Settings()) -> Analysis:
+    """Like :func:`analyse`, but also return the intermediate stages."""
+    notes = _as_notes(source, tracks)
+    events = merge_events(notes, settings.merge_window_s)
+    t = events.times_s
+    if len(t) < MIN_EVENTS or t[-1] - t[0] < MIN_SPAN_S:
+        raise InputError(f"too few onsets for any metre: {len(t)} events over {t[-1] - t[0]:.2f} s "
+                         f"(need at least {MIN_EVENTS} events over {MIN_SPAN_S} s)")
+    w = event_weights(events, settings.accents)
+    pulse = track_pulse(t, w, settings.tempo)
+    tau = pulse.warp(t)
+    pulse_s = pulse.median_period_s
+    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine)
+    result = _assemble(notes, t, pulse, tree, settings)
+    return Analysis(result, t, w, pulse, tree)
+
+
+def _grid_times(pulse: PulseTrack, start_pulses: float, step_pulses: np.ndarray, bar_pulses: float, t0: float, t1: float, tol_s: float) -> np.ndarray:
+    """Times of a repeating pattern of offsets (in pulses) that fall within the piece."""
+    lo, hi = pulse.warp([t0 - tol_s, t1 + tol_s])
+    first_bar = np.floor((lo - start_pulses) / bar_pulses) - 1
+    last_bar = np.ceil((hi - start_pulses) / bar_pulses) + 1
+    bars = start_pulses + np.arange(first_bar, last_bar + 1) * bar_pulses
+    pos = (bars[:, None] + step_pulses[None, :]).ravel()
+    times = pulse.unwarp(pos)
+    return np.sort(times[(times >= t0 - tol_s) & (times <= t1 + tol_s)])
+
+
+def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings) -> MetreResult:
+    best = tree.best
+    t0, t1 = float(t[0]), float(t[-1])
+    tol = 0.05
+    bar_p = float(best.bar)
+    downbeats = _grid_times(pulse, best.downbeat_pulses, np.array([0.0]), bar_p, t0, t1, tol)
+    beats = _grid_times(pulse, best.downbeat_pulses, best.beat_offsets(), bar_p, t0, t1, tol)
+    pulse_s = pulse.median_period_s
+    bar_s = float(np.median(np.diff(downbeats))) if len(downbeats) > 1 else bar_p * pulse_s
+    beat_s = float(np.median(np.diff(beats))) if len(beats) > 1 else float(best.beat) * pulse_s
+    levels = []
+    for name in ("subdivision", "beat", "bar", "hypermeasure"):
+        if name not in tree.graph:
+            continue
+        node = tree.graph.nodes[name]
+        length = float(node["length"])
+        first = pulse.unwarp([best.downbeat_pulses + np.ceil((pulse.warp([t0 - tol])[0] - best.downbeat_pulses) / length) * length])[0]
+        levels.append(Level(name, length * pulse_s, float(first), node["score"], node["confidence"]))
+    alternatives = _alternatives(tree, pulse, t0, tol, settings.n_alternatives)
+    notated = f"{notes.time_signatures[0]}" if notes.time_signatures else None
+    return make_result(
+        source=notes.source,
+        time_signature=best.time_signature,
+        beats_per_bar=best.beats_per_bar,
+        beat_division=best.division if best.grouping is None else None,
+        grouping=list(best.grouping) if best.grouping else None,
+        bar_s=bar_s,
+        beat_s=beat_s,
+        tempo_bpm=60.0 / beat_s,
+        confidence=float(tree.probabilities[0]),
+        levels=levels,
+        downbeats_s=downbeats,
+        beats_s=beats,
+        alternatives=alternatives,
+        segments=[Segment(t0, t1, best.time_signature)],
+        n_events=len(t),
+        duration_s=t1 - t0,
+        notated_time_signature=notated,
+        extra={"pulse_s": pulse_s, "score_terms": best.terms},
+    )
+
+
+def _alternatives(tree: MetricTree, pulse: PulseTrack, t0: float, tol: float, limit: int) -> list[Reading]:
+    """Distinct readings (notation and downbeat), best first."""
+    out, seen = [], set()
+    for cand, prob in zip(tree.candidates, tree.probabilities):
+        bar = float(cand.bar)
+        start = pulse.warp([t0 - tol])[0]
+        first_down = cand.downbeat_pulses + np.ceil((start - cand.downbeat_pulses) / bar) * bar
+        key = (cand.time_signature, cand.grouping, round(float(pulse.unwarp([first_down])[0]), 2))
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append(Reading(
+            rank=len(out) + 1,
+            time_signature=cand.time_signature,
+            beats_per_bar=cand.beats_per_bar,
+            beat_division=cand.division if cand.grouping is None else None,
+            grouping=list(cand.grouping) if cand.grouping else None,
+            bar_s=bar * pulse.median_period_s,
+            phase_s=float(pulse.unwarp([first_down])[0]),
+            score=cand.score,
+            probability=float(prob),
+        ))
+        if len(out) >= limit:
+            break
+    return out

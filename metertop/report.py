@@ -1,0 +1,54 @@
+"""Human-readable summaries of a result.
+
+Conventions
+-----------
+Functions here return strings; they never print.
+"""
+
+from __future__ import annotations
+
+from .result import MetreResult
+
+__all__ = ["summary"]
+
+
+def _tree_line(result: MetreResult) -> str:
+    names = [lv.name for lv in result.levels]
+    return " > ".join(names)
+
+
+def summary(result: MetreResult, name: str | None = None) -> str:
+    """A short text report: metre, tempo, the metric tree, first downbeat, alternatives.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from metertop import analyse, notes_from_onsets
+    >>> t = np.arange(32) * 0.5
+    >>> w = np.tile([3.0, 1.0, 1.0, 1.0], 8)
+    >>> print(summary(analyse(notes_from_onsets(t, w))).splitlines()[0])
+    time signature 4/4 at 120.0 bpm, confidence ...
+    """
+    lines = []
+    head = f"time signature {result.time_signature} at {result.tempo_bpm:.1f} bpm, confidence {result.confidence:.2f}"
+    if name:
+        lines.append(name)
+        head = "  " + head
+    lines.append(head)
+    indent = "  " if name else ""
+    if result.grouping:
+        lines.append(f"{indent}beats grouped {'+'.join(str(g) for g in result.grouping)} (in tatums)")
+    lines.append(f"{indent}metric tree ({_tree_line(result)}):")
+    for lv in result.levels:
+        lines.append(f"{indent}  {lv.name:<13s} every {lv.period_s * 1000:8.1f} ms   first at {lv.phase_s:7.3f} s   "
+                     f"score {lv.score:5.2f}   confidence {lv.confidence:.2f}")
+    first = f"{result.downbeats_s[0]:.3f} s" if len(result.downbeats_s) else "none"
+    lines.append(f"{indent}first downbeat {first}; {len(result.downbeats_s)} bars, {len(result.beats_s)} beats "
+                 f"over {result.duration_s:.1f} s ({result.n_events} events)")
+    if result.notated_time_signature:
+        agree = "matches" if result.notated_time_signature == result.time_signature else "differs from"
+        lines.append(f"{indent}the file's own time signature {result.notated_time_signature} {agree} the proposal")
+    alts = [f"{a.time_signature} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
+    if alts:
+        lines.append(f"{indent}alternatives: " + "; ".join(alts))
+    return "\n".join(lines)

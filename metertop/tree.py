@@ -1,0 +1,433 @@
+"""Metric tree: nest the scanned cycles into subdivision, beat, bar and hypermeasure.
+
+Conventions
+-----------
+- Works in pulse time (:mod:`metertop.tempo`): the tracked pulse has length 1.
+- Cycle lengths are exact fractions of the pulse (:class:`fractions.Fraction`).
+- A *reading* is a path in the cycle lattice, a networkx DiGraph whose nodes
+  are cycle lengths and whose edges say "is divided into": subdivision ->
+  beat (by 2 or 3), beat -> bar (2 to 5 beats, or one compound beat), and
+  tatum -> bar for additive bars (5 or 7 tatums grouped in 2s and 3s).
+- Each reading has a downbeat position: one of the most persistent peaks of
+  the wrapped density at its bar length.
+
+Scoring
+-------
+Every term is read off the merge trees of the wrapped densities
+(:mod:`metertop.scan`), so the topology decides. The *margin* of a position
+in a cycle is its relative persistence minus the largest relative
+persistence of any other peak: 1 when it is the essential peak and nothing
+else persists.
+
+``bar``
+    margin of the downbeat at bar length (bars of one beat earn 0: they have
+    no other beat to stand out from); for 4 beats, half the margin of the
+    half bar is added, because a true bar nests its half.
+``beat``
+    margin of the beat at beat length, against its own subdivisions; for
+    additive bars, the mean relative persistence at group starts minus that
+    at the other tatums.
+``division``
+    at beat length: persistence at the halves against the thirds of the beat.
+``unexplained``
+    the share of persistence in peaks off the reading's finest grid (two
+    levels below the beat), a penalty.
+``support``
+    the log share of downbeats that carry an onset.
+
+The bar and beat margins are multiplied by the share of the compared
+positions (the other beats; all beats) that carry an onset: a cycle shorter
+than the pulse folds every onset onto one phase and so has a perfect
+margin, but most of its beats are empty.
+``tempo``
+    a log-normal preference for beats near 0.6 s (Parncutt 1994; van Noorden
+    & Moelants 1999, from memory).
+``prior``
+    a small log-prior per family; additive bars need clearer evidence.
+
+The scores pass through a softmax into probabilities; the confidence of a
+level is the total probability of the readings that agree on it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from fractions import Fraction
+
+import networkx as nx
+import numpy as np
+
+from .scan import WrappedCycle, wrap_cycle
+
+__all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "time_signature_of"]
+
+F = Fraction
+# Additive groupings of an irregular bar, in tatums (common practice).
+ADDITIVE = ((3, 2), (2, 3), (2, 2, 3), (2, 3, 2), (3, 2, 2))
+
+
+@dataclass(frozen=True)
+class TreeSettings:
+    """Weights and priors of the reading score."""
+
+    w_bar: float = 1.0
+    w_beat: float = 0.6
+    w_division: float = 0.35
+    w_tempo: float = 0.5
+    w_support: float = 0.5
+    w_unexplained: float = 1.0
+    w_half_bar: float = 0.5
+    beat_prior_s: float = 0.6
+    beat_prior_octaves: float = 0.8
+    min_beat_s: float = 0.2
+    max_beat_s: float = 2.0
+    max_bar_s: float = 8.0
+    temperature: float = 0.12
+    bins_per_pulse: int = 24
+    width_pulses: float = 0.06
+    phase_candidates: int = 3
+    hyper_min_dominance: float = 0.2
+    # Log-prior per metre family; irregular bars need clearer evidence.
+    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": -0.05, "single": -0.15, "irregular": -0.25})
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """A scored reading in pulse units."""
+
+    beat: Fraction
+    division: int | None
+    beats_per_bar: int
+    grouping: tuple[int, ...] | None
+    tatum: Fraction
+    bar: Fraction
+    downbeat_pulses: float
+    terms: dict
+    score: float
+
+    @property
+    def time_signature(self) -> str:
+        return time_signature_of(self.beats_per_bar, self.division, self.grouping)
+
+    @property
+    def family(self) -> str:
+        return _family(self.beats_per_bar, self.division, self.grouping)
+
+    def beat_offsets(self) -> np.ndarray:
+        """Beat positions within the bar, in pulses from the downbeat."""
+        if self.grouping is not None:
+            return np.concatenate([[0], np.cumsum(self.grouping)[:-1]]).astype(float) * float(self.tatum)
+        return np.arange(self.beats_per_bar) * float(self.beat)
+
+
+def time_signature_of(beats_per_bar: int, division: int | None, grouping) -> str:
+    """Conventional notation: simple beats are quarters, compound beats dotted quarters, tatums of irregular bars eighths.
+
+    >>> time_signature_of(3, 2, None), time_signature_of(2, 3, None), time_signature_of(3, None, (2, 2, 3))
+    ('3/4', '6/8', '7/8')
+    """
+    if grouping is not None:
+        return f"{sum(grouping)}/8"
+    if division == 3:
+        return f"{3 * beats_per_bar}/8"
+    return f"{beats_per_bar}/4"
+
+
+def cycle_lattice(beats=(F(1, 3), F(1, 2), F(2, 3), F(1), F(3, 2), F(2), F(3), F(4)), tatums=(F(1, 2), F(1))) -> nx.MultiDiGraph:
+    """The lattice of candidate cycle lengths, in pulses.
+
+    Edges carry ``kind`` (``division``, ``bar`` or ``additive``) and the
+    integer ``ratio`` of the lengths (and ``grouping`` for additive edges);
+    two lengths can be linked in more than one way, hence a multigraph.
+
+    Examples
+    --------
+    >>> g = cycle_lattice()
+    >>> g.edges[F(1, 3), F(1), ("division", 3)]["ratio"], g.edges[F(1), F(3), ("bar", 3)]["kind"]
+    (3, 'bar')
+    >>> sorted(k[1] for _, _, k in g.out_edges(F(1, 2), keys=True) if k[0] == "additive")
+    [(2, 2, 3), (2, 3), (2, 3, 2), (3, 2), (3, 2, 2)]
+    """
+    g = nx.MultiDiGraph()
+    for beat in beats:
+        for div in (2, 3):
+            g.add_edge(beat / div, beat, key=("division", div), kind="division", ratio=div)
+        for n in range(1, 6):
+            g.add_edge(beat, beat * n, key=("bar", n), kind="bar", ratio=n)  # up to 5/4; 12/8 at most for compound beats
+    for tatum in tatums:
+        for grouping in ADDITIVE:
+            g.add_edge(tatum, tatum * sum(grouping), key=("additive", grouping), kind="additive", ratio=sum(grouping), grouping=grouping)
+    return g
+
+
+@dataclass
+class _Scanner:
+    """Wrapped cycles cached by length."""
+
+    positions: np.ndarray
+    weights: np.ndarray
+    settings: TreeSettings
+    engine: str
+    cache: dict = field(default_factory=dict)
+
+    def occupancy(self, start: float, period: float, offsets: np.ndarray, tol: float) -> float:
+        """Share of the grid points ``start + offsets + k * period`` within the onsets' span that have an onset within ``tol``."""
+        x = self.positions
+        lo, hi = x.min(), x.max()
+        k0 = np.floor((lo - start) / period)
+        k1 = np.ceil((hi - start) / period)
+        pts = (start + np.arange(k0, k1 + 1)[:, None] * period + offsets[None, :]).ravel()
+        pts = pts[(pts >= lo - tol) & (pts <= hi + tol)]
+        if len(pts) == 0:
+            return 0.0
+        idx = np.clip(np.searchsorted(x, pts), 1, len(x) - 1)
+        nearest = np.minimum(np.abs(x[idx] - pts), np.abs(x[idx - 1] - pts))
+        return float(np.mean(nearest <= tol))
+
+    def __call__(self, length: Fraction) -> WrappedCycle:
+        if length not in self.cache:
+            span = float(self.positions.max() - self.positions.min()) + float(length)
+            self.cache[length] = wrap_cycle(self.positions, self.weights, float(length), bins_per_unit=self.settings.bins_per_pulse,
+                                            width_units=self.settings.width_pulses, span=span, engine=self.engine)
+        return self.cache[length]
+
+
+def _snap_unit(*lengths: Fraction) -> Fraction:
+    """Largest unit in {1, 1/2, 1/3, 1/4, 1/6} that divides every length."""
+    for d in (1, 2, 3, 4, 6):
+        if all((x * d).denominator == 1 for x in lengths):
+            return F(1, d)
+    return F(1, 12)
+
+
+def _others_max(cyc: WrappedCycle, phase: float, tol: float) -> float:
+    pp, rel = cyc.peak_phases, cyc.relative_persistence
+    d = np.abs(((pp - phase) + 0.5) % 1.0 - 0.5)
+    others = rel[d > tol]
+    return float(others.max()) if len(others) else 0.0
+
+
+def _margin(cyc: WrappedCycle, phase: float, tol: float) -> float:
+    """Relative persistence of the peak at ``phase`` minus the largest elsewhere.
+
+    1 when the position is the essential peak and nothing else persists; 0
+    or below when another position persists as long.
+    """
+    return float(cyc.persistence_at([phase], tol)[0]) - _others_max(cyc, phase, tol)
+
+
+def _unexplained(cyc: WrappedCycle, grid_phases: np.ndarray, tol: float) -> float:
+    """Share of the total relative persistence in peaks off the reading's grid."""
+    pp, rel = cyc.peak_phases, cyc.relative_persistence
+    total = rel.sum()
+    if total <= 0:
+        return 0.0
+    d = np.abs(((pp[:, None] - grid_phases[None, :]) + 0.5) % 1.0 - 0.5).min(axis=1)
+    return float(rel[d > tol].sum() / total)
+
+
+def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, pulse_s, s: TreeSettings) -> list[Candidate]:
+    cyc = scan(bar)
+    L = float(bar)
+    sub = tatum if grouping else beat / division
+    tol = min(0.25 * float(sub) / L, 0.12)
+    unit = float(_snap_unit(bar, tatum if grouping else beat))
+    # The finest grid a reading accounts for: two levels below the beat.
+    fine = float(tatum / 2 if grouping else beat / (2 * division))
+    fine_grid = np.arange(int(round(L / fine))) * fine
+    seen, out = set(), []
+    rel = cyc.relative_persistence
+    # Downbeat candidates: the most persistent peaks, snapped to the grid.
+    for ph, r in zip(cyc.peak_phases[: s.phase_candidates], rel[: s.phase_candidates]):
+        if r < 0.2 and out:
+            break
+        x0 = (round(ph * L / unit) * unit) % L
+        if round(x0, 6) in seen:
+            continue
+        seen.add(round(x0, 6))
+        # Evidence needs onsets to compare: a cycle shorter than the pulse
+        # folds every onset onto one phase and has a perfect margin, but its
+        # other beats are empty. Margins are weighted by the share of the
+        # compared positions that carry an onset.
+        offsets = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum) if grouping else np.arange(n) * float(beat)
+        otol = float(sub) * 0.25
+        occ_beats = scan.occupancy(x0, L, offsets[1:], otol) if n > 1 else scan.occupancy(x0, L, offsets, otol)
+        support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
+        bar_term = _margin(cyc, x0 / L, tol) * occ_beats if n > 1 else 0.0
+        # Nesting: a bar of an even number of beats also shows its half bar.
+        if grouping is None and n % 2 == 0 and n > 2:
+            half = bar / 2
+            bar_term += s.w_half_bar * _margin(scan(half), (x0 % float(half)) / float(half), 2 * tol)
+        if grouping is None:
+            # The beat against its own subdivisions, at beat length.
+            bc = scan(beat)
+            bphase = (x0 % float(beat)) / float(beat)
+            btol = min(0.25 / division, 0.12)
+            beat_term = _margin(bc, bphase, btol) * scan.occupancy(x0, L, offsets, otol)
+            halves = bc.persistence_at([(bphase + 0.5) % 1], btol).mean()
+            thirds = bc.persistence_at([(bphase + 1 / 3) % 1, (bphase + 2 / 3) % 1], btol).mean()
+            division_term = float(halves - thirds) if division == 2 else float(thirds - halves)
+        else:
+            # Additive bars: group starts against the other tatums, at bar length.
+            starts = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum)
+            others = np.setdiff1d(np.arange(sum(grouping)), np.concatenate([[0], np.cumsum(grouping)[:-1]])) * float(tatum)
+            pb = cyc.persistence_at(((x0 + starts[1:]) % L) / L, tol).mean()
+            po = cyc.persistence_at(((x0 + others) % L) / L, tol).mean()
+            beat_term = float(pb - po)
+            division_term = 0.0
+        unexplained = _unexplained(cyc, ((x0 + fine_grid) % L) / L, min(tol, 0.25 * fine / L))
+        beat_s = float(beat) * pulse_s
+        tempo_term = -0.5 * (np.log2(beat_s / s.beat_prior_s) / s.beat_prior_octaves) ** 2
+        family = _family(n, division, grouping)
+        terms = {"bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
+                 "unexplained": float(unexplained), "support": float(support), "tempo": float(tempo_term),
+                 "prior": s.class_prior[family]}
+        total = (s.w_bar * bar_term + s.w_beat * beat_term + s.w_division * division_term
+                 - s.w_unexplained * unexplained + s.w_support * support + s.w_tempo * tempo_term + s.class_prior[family])
+        out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), terms, float(total)))
+    return out
+
+
+def _family(n: int, division: int | None, grouping) -> str:
+    if grouping is not None:
+        return "irregular"
+    if division == 3:
+        return "single" if n == 1 else "compound"
+    return "simple"
+
+
+@dataclass(frozen=True)
+class MetricTree:
+    """Scored readings, best first, and the lattice they came from.
+
+    Attributes
+    ----------
+    candidates : list of Candidate
+        Every scored reading, best first.
+    probabilities : ndarray
+        Softmax of the scores (same order).
+    graph : networkx.DiGraph
+        The chosen reading's tree: nodes are level names with ``length``
+        (pulses), ``score`` and ``confidence``; edges carry the ratio.
+    cycles : dict
+        The wrapped cycles by length (pulses), for reports and plots.
+    hyper_bars : int or None
+        Bars per hypermeasure, if one stands out.
+    """
+
+    candidates: list
+    probabilities: np.ndarray
+    graph: nx.DiGraph
+    cycles: dict
+    hyper_bars: int | None
+
+    @property
+    def best(self) -> Candidate:
+        return self.candidates[0]
+
+
+def _agree(a: Candidate, b: Candidate, level: str) -> bool:
+    """Do two readings share the given level (same length and phase)?"""
+    if level == "bar":
+        length_a, length_b = a.bar, b.bar
+    elif level == "beat":
+        if a.grouping is not None or b.grouping is not None:
+            return a.grouping == b.grouping and a.tatum == b.tatum and abs(a.downbeat_pulses - b.downbeat_pulses) < 1e-6
+        length_a, length_b = a.beat, b.beat
+    else:
+        length_a = a.tatum if a.grouping else a.beat / a.division
+        length_b = b.tatum if b.grouping else b.beat / b.division
+    if length_a != length_b:
+        return False
+    diff = (a.downbeat_pulses - b.downbeat_pulses) % float(length_a)
+    return min(diff, float(length_a) - diff) < 1e-6
+
+
+def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus") -> MetricTree:
+    """Score every reading of the cycle lattice and assemble the best metric tree.
+
+    Parameters
+    ----------
+    positions, weights : array_like
+        Event positions in pulse time, and their weights.
+    pulse_s : float
+        Median pulse period in seconds, for the tempo preference and range.
+    settings : TreeSettings
+    engine : {"dionysus", "unionfind"}
+        Persistence engine.
+    """
+    s = settings
+    x = np.asarray(positions, dtype=np.float64)
+    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine)
+    lattice = cycle_lattice()
+    span_pulses = float(x.max() - x.min())
+    cands: list[Candidate] = []
+    for lo, hi, data in lattice.edges(data=True):
+        bar_s = float(hi) * pulse_s
+        if bar_s > s.max_bar_s or float(hi) > span_pulses / 1.5:
+            continue
+        if data["kind"] == "bar":
+            beat, n = lo, data["ratio"]
+            if not s.min_beat_s <= float(beat) * pulse_s <= s.max_beat_s:
+                continue
+            for sub, _, d2 in lattice.in_edges(beat, data=True):
+                if d2["kind"] != "division":
+                    continue
+                div = d2["ratio"]
+                if (n == 1 and div == 2) or (n == 5 and div == 3):
+                    continue  # a bar of one simple beat is the beat itself; 15/8 is too rare to propose
+                cands += _score_reading(scan, beat, div, n, None, sub, hi, pulse_s, s)
+        elif data["kind"] == "additive":
+            tatum = lo
+            if not 0.12 <= float(tatum) * pulse_s <= 0.5:
+                continue
+            grouping = data["grouping"]
+            beat = F(int(np.median(grouping))) * tatum
+            cands += _score_reading(scan, beat, None, len(grouping), grouping, tatum, hi, pulse_s, s)
+    if not cands:
+        raise ValueError("no reading fits the tempo range")
+    cands.sort(key=lambda c: -c.score)
+    scores = np.array([c.score for c in cands])
+    p = np.exp((scores - scores.max()) / s.temperature)
+    p /= p.sum()
+    best = cands[0]
+    hyper, hyper_score = _hypermeasure(scan, best, s)
+    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score)
+    return MetricTree(cands, p, graph, scan.cache, hyper)
+
+
+def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int | None, float]:
+    """Bars per hypermeasure: the multiple of the bar whose downbeat dominates most."""
+    span = float(scan.positions.max() - scan.positions.min())
+    best_k, best_dom = None, 0.0
+    for k in (2, 4, 8):
+        length = best.bar * k
+        if float(length) * 2 > span:
+            break
+        cyc = scan(length)
+        top = float(cyc.peak_phases[0]) * float(length)
+        # The hypermeasure must start on a downbeat.
+        off = (top - best.downbeat_pulses) % float(best.bar)
+        if min(off, float(best.bar) - off) > 0.25 * float(best.beat):
+            continue
+        if cyc.dominance > best_dom:
+            best_k, best_dom = k, cyc.dominance
+    if best_dom < s.hyper_min_dominance:
+        return None, best_dom
+    return best_k, best_dom
+
+
+def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score) -> nx.DiGraph:
+    g = nx.DiGraph()
+    sub_len = best.tatum if best.grouping else best.beat / best.division
+    conf = {lv: float(sum(pi for c, pi in zip(cands, p) if _agree(best, c, lv))) for lv in ("subdivision", "beat", "bar")}
+    sub_cyc = scan(sub_len)
+    g.add_node("subdivision", length=sub_len, score=float(sub_cyc.contrast), confidence=conf["subdivision"])
+    g.add_node("beat", length=best.beat, score=float(best.terms["beat"]), confidence=conf["beat"])
+    g.add_node("bar", length=best.bar, score=float(best.terms["bar"]), confidence=conf["bar"])
+    g.add_edge("subdivision", "beat", ratio=(best.grouping if best.grouping else best.division))
+    g.add_edge("beat", "bar", ratio=best.beats_per_bar)
+    if hyper is not None:
+        g.add_node("hypermeasure", length=best.bar * hyper, score=float(hyper_score), confidence=float(min(max(hyper_score, 0.0), 1.0)))
+        g.add_edge("bar", "hypermeasure", ratio=hyper)
+    return g
