@@ -522,7 +522,7 @@ def lamplighters_waltz() -> Piece:
 
 
 def ferry_jig() -> Piece:
-    """6/8 jig (dotted-quarter beat in three) with a bass on each beat.
+    """6/8 jig (dotted-quarter beat in three): bass on the downbeat, a guitar chord on the second beat.
 
     The file's time-signature event is left at the sequencer default 4/4.
     """
@@ -540,6 +540,7 @@ def ferry_jig() -> Piece:
         parts=[
             Part("Fiddle", program=40, legato=0.85),
             Part("Double bass", program=32, legato=0.7),
+            Part("Guitar", program=24, legato=0.5),
         ],
         notated_time_signature="4/4",
     )
@@ -570,10 +571,12 @@ def ferry_jig() -> Piece:
     )
     for onset, dur, pitch in melody:
         piece.add("Fiddle", onset, dur, pitch, 70 if dur >= 1 else 62)
+    # The usual jig accompaniment: bass on the downbeat, chord on the second beat.
     for bar, chord in enumerate(chords):
         root = 38 + (chord[0] - 38) % 12
         piece.add("Double bass", bar * bar_qn, 1.5, root, 78)
-        piece.add("Double bass", bar * bar_qn + 1.5, 1.5, root + 7 if root + 7 <= 52 else root - 5, 70)
+        for p in [55 + (pc - 55) % 12 for pc in chord]:
+            piece.add("Guitar", bar * bar_qn + 1.5, 0.75, p, 56)
     end = piece.n_bars * bar_qn
     piece.add("Double bass", end, 1.5, 38, 80)
     piece.add("Fiddle", end, 1.5, 74, 72)

@@ -154,7 +154,7 @@ def pulse_salience(times_s, weights, centres_s, half_width_s: float, periods_s, 
         near = np.abs(((np.arange(settings.n_bins)[None, :] - top[:, None]) + settings.n_bins // 2) % settings.n_bins - settings.n_bins // 2)
         mask = near <= settings.n_bins // 5
         share = (dens * mask).sum(axis=1) / np.maximum(dens.sum(axis=1), 1e-12)
-        out[k] = essential * share
+        out[k] = essential * share ** 2
     return out
 
 

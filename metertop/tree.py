@@ -28,7 +28,8 @@ else persists.
     additive bars, the mean relative persistence at group starts minus that
     at the other tatums.
 ``division``
-    at beat length: persistence at the halves against the thirds of the beat.
+    at beat length: persistence at the halves against the thirds of the beat,
+    times the beat's own margin.
 ``unexplained``
     the share of persistence in peaks off the reading's finest grid (two
     levels below the beat), a penalty.
@@ -38,12 +39,16 @@ else persists.
 The bar and beat margins are multiplied by the share of the compared
 positions (the other beats; all beats) that carry an onset: a cycle shorter
 than the pulse folds every onset onto one phase and so has a perfect
-margin, but most of its beats are empty.
+margin, but most of its beats are empty. The bar margin is also weighted by
+its reliability, a paired t statistic of the downbeat against its strongest
+rival beat over the bars (:func:`_reliability`).
 ``tempo``
     a log-normal preference for beats near 0.6 s (Parncutt 1994; van Noorden
     & Moelants 1999, from memory).
 ``prior``
-    a small log-prior per family; additive bars need clearer evidence.
+    a small log-prior per family; additive bars need clearer evidence; for
+    drum grooves, four beats are preferred to two (the backbeat falls on 2
+    and 4 of a four-beat bar, common practice).
 
 The scores pass through a softmax into probabilities; the confidence of a
 level is the total probability of the readings that agree on it.
@@ -76,19 +81,22 @@ class TreeSettings:
     w_tempo: float = 0.5
     w_support: float = 0.5
     w_unexplained: float = 1.0
-    w_half_bar: float = 0.5
+    w_half_bar: float = 0.6
     beat_prior_s: float = 0.6
     beat_prior_octaves: float = 0.8
     min_beat_s: float = 0.2
     max_beat_s: float = 2.0
     max_bar_s: float = 8.0
     temperature: float = 0.12
-    bins_per_pulse: int = 24
-    width_pulses: float = 0.06
+    width_s: float = 0.025  # bump width: jitter left after the warp
+    min_width_pulses: float = 0.03
     phase_candidates: int = 3
     hyper_min_dominance: float = 0.2
     # Log-prior per metre family; irregular bars need clearer evidence.
-    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": -0.05, "single": -0.15, "irregular": -0.25})
+    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": -0.05, "single": -0.15, "irregular": -0.15})
+    # Drum grooves put the backbeat on beats 2 and 4 of a four-beat bar; a
+    # two-beat bar is the rarer notation for the same groove (common practice).
+    drum_duple_prior: dict = field(default_factory=lambda: {2: -0.2})
 
 
 @dataclass(frozen=True)
@@ -162,33 +170,51 @@ def cycle_lattice(beats=(F(1, 3), F(1, 2), F(2, 3), F(1), F(3, 2), F(2), F(3), F
 
 @dataclass
 class _Scanner:
-    """Wrapped cycles cached by length."""
+    """Wrapped cycles cached by length, with bumps of a fixed width in seconds."""
 
     positions: np.ndarray
     weights: np.ndarray
     settings: TreeSettings
     engine: str
+    pulse_s: float
     cache: dict = field(default_factory=dict)
 
+    @property
+    def width_pulses(self) -> float:
+        return max(self.settings.width_s / self.pulse_s, self.settings.min_width_pulses)
+
+    def _grid(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
+        """Grid points ``start + offsets + k * period`` within the onsets' span, one row per cycle."""
+        lo, hi = self.positions.min(), self.positions.max()
+        k = np.arange(np.floor((lo - start) / period), np.ceil((hi - start) / period) + 1)
+        pts = start + k[:, None] * period + np.asarray(offsets, dtype=float)[None, :]
+        inside = ((pts >= lo - tol) & (pts <= hi + tol)).all(axis=1)
+        return pts[inside]
+
+    def grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
+        """Weight of the onset nearest each grid point (0 if none within ``tol``); shape (cycles, len(offsets))."""
+        pts = self._grid(start, period, offsets, tol)
+        x, w = self.positions, self.weights
+        if pts.size == 0:
+            return np.zeros((0, len(offsets)))
+        flat = pts.ravel()
+        idx = np.clip(np.searchsorted(x, flat), 1, len(x) - 1)
+        left, right = idx - 1, idx
+        nearest = np.where(np.abs(x[left] - flat) <= np.abs(x[right] - flat), left, right)
+        hit = np.abs(x[nearest] - flat) <= tol
+        return np.where(hit, w[nearest], 0.0).reshape(pts.shape)
+
     def occupancy(self, start: float, period: float, offsets: np.ndarray, tol: float) -> float:
-        """Share of the grid points ``start + offsets + k * period`` within the onsets' span that have an onset within ``tol``."""
-        x = self.positions
-        lo, hi = x.min(), x.max()
-        k0 = np.floor((lo - start) / period)
-        k1 = np.ceil((hi - start) / period)
-        pts = (start + np.arange(k0, k1 + 1)[:, None] * period + offsets[None, :]).ravel()
-        pts = pts[(pts >= lo - tol) & (pts <= hi + tol)]
-        if len(pts) == 0:
-            return 0.0
-        idx = np.clip(np.searchsorted(x, pts), 1, len(x) - 1)
-        nearest = np.minimum(np.abs(x[idx] - pts), np.abs(x[idx - 1] - pts))
-        return float(np.mean(nearest <= tol))
+        """Share of the grid points ``start + offsets + k * period`` that have an onset within ``tol``."""
+        gw = self.grid_weights(start, period, offsets, tol)
+        return float(np.mean(gw > 0)) if gw.size else 0.0
 
     def __call__(self, length: Fraction) -> WrappedCycle:
         if length not in self.cache:
             span = float(self.positions.max() - self.positions.min()) + float(length)
-            self.cache[length] = wrap_cycle(self.positions, self.weights, float(length), bins_per_unit=self.settings.bins_per_pulse,
-                                            width_units=self.settings.width_pulses, span=span, engine=self.engine)
+            width = self.width_pulses
+            self.cache[length] = wrap_cycle(self.positions, self.weights, float(length), bins_per_unit=int(np.clip(np.ceil(2.5 / width), 12, 48)),
+                                            width_units=width, span=span, engine=self.engine)
         return self.cache[length]
 
 
@@ -216,6 +242,38 @@ def _margin(cyc: WrappedCycle, phase: float, tol: float) -> float:
     return float(cyc.persistence_at([phase], tol)[0]) - _others_max(cyc, phase, tol)
 
 
+def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, offsets: np.ndarray, tol: float, otol: float) -> float:
+    """Margin of the downbeat at bar length, weighted by how many other beats carry onsets and by its reliability."""
+    occupied = scan.occupancy(x0, L, offsets[1:], otol)
+    return _margin(cyc, x0 / L, tol) * occupied * _reliability(scan.grid_weights(x0, L, offsets, otol))
+
+
+def _reliability(cycle_weights: np.ndarray) -> float:
+    """How reliably the first position outweighs the strongest other one, cycle by cycle.
+
+    A paired t statistic over the cycles, ``t = mean(d) / (sd(d) / sqrt(n))``
+    with ``d`` the downbeat's weight minus the strongest other position's,
+    mapped to ``t**2 / (t**2 + 4)`` (0.5 at t = 2) and 0 for t <= 0. It keeps
+    a margin that a handful of loud cycles produce by chance from counting
+    as a bar.
+    """
+    if cycle_weights.shape[0] < 3 or cycle_weights.shape[1] < 2:
+        return 0.0
+    rival = int(np.argmax(cycle_weights[:, 1:].mean(axis=0))) + 1
+    d = cycle_weights[:, 0] - cycle_weights[:, rival]
+    sd = d.std(ddof=1)
+    t = d.mean() / (sd / np.sqrt(len(d))) if sd > 0 else (np.inf if d.mean() > 0 else 0.0)
+    return float(t * t / (t * t + 4.0)) if t > 0 else 0.0
+
+
+def _division_term(beat_cycle: WrappedCycle, phase: float, division: int) -> float:
+    """At beat length: persistence at the halves against the thirds of the beat (or the reverse for 3)."""
+    tol = min(0.25 / division, 0.12)
+    halves = beat_cycle.persistence_at([(phase + 0.5) % 1], tol).mean()
+    thirds = beat_cycle.persistence_at([(phase + 1 / 3) % 1, (phase + 2 / 3) % 1], tol).mean()
+    return float(halves - thirds) if division == 2 else float(thirds - halves)
+
+
 def _unexplained(cyc: WrappedCycle, grid_phases: np.ndarray, tol: float) -> float:
     """Share of the total relative persistence in peaks off the reading's grid."""
     pp, rel = cyc.peak_phases, cyc.relative_persistence
@@ -226,7 +284,7 @@ def _unexplained(cyc: WrappedCycle, grid_phases: np.ndarray, tol: float) -> floa
     return float(rel[d > tol].sum() / total)
 
 
-def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, pulse_s, s: TreeSettings) -> list[Candidate]:
+def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, pulse_s, s: TreeSettings, drums: bool) -> list[Candidate]:
     cyc = scan(bar)
     L = float(bar)
     sub = tatum if grouping else beat / division
@@ -251,39 +309,44 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         # compared positions that carry an onset.
         offsets = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum) if grouping else np.arange(n) * float(beat)
         otol = float(sub) * 0.25
-        occ_beats = scan.occupancy(x0, L, offsets[1:], otol) if n > 1 else scan.occupancy(x0, L, offsets, otol)
         support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
-        bar_term = _margin(cyc, x0 / L, tol) * occ_beats if n > 1 else 0.0
-        # Nesting: a bar of an even number of beats also shows its half bar.
-        if grouping is None and n % 2 == 0 and n > 2:
+        bar_term = _bar_evidence(scan, cyc, x0, L, offsets, tol, otol) if n > 1 else 0.0
+        # Nesting: a bar of four beats also shows its half bar.
+        if grouping is None and n == 4:
             half = bar / 2
-            bar_term += s.w_half_bar * _margin(scan(half), (x0 % float(half)) / float(half), 2 * tol)
+            bar_term += s.w_half_bar * _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], 2 * tol, otol)
         if grouping is None:
             # The beat against its own subdivisions, at beat length.
             bc = scan(beat)
             bphase = (x0 % float(beat)) / float(beat)
-            btol = min(0.25 / division, 0.12)
-            beat_term = _margin(bc, bphase, btol) * scan.occupancy(x0, L, offsets, otol)
-            halves = bc.persistence_at([(bphase + 0.5) % 1], btol).mean()
-            thirds = bc.persistence_at([(bphase + 1 / 3) % 1, (bphase + 2 / 3) % 1], btol).mean()
-            division_term = float(halves - thirds) if division == 2 else float(thirds - halves)
+            beat_margin = _margin(bc, bphase, min(0.25 / division, 0.12))
+            beat_term = beat_margin * scan.occupancy(x0, L, offsets, otol)
+            # A division only counts for a beat that stands out: a length that
+            # smears two beat positions together fills its "halves" trivially.
+            division_term = _division_term(bc, bphase, division) * max(beat_margin, 0.0)
         else:
-            # Additive bars: group starts against the other tatums, at bar length.
-            starts = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum)
-            others = np.setdiff1d(np.arange(sum(grouping)), np.concatenate([[0], np.cumsum(grouping)[:-1]])) * float(tatum)
-            pb = cyc.persistence_at(((x0 + starts[1:]) % L) / L, tol).mean()
-            po = cyc.persistence_at(((x0 + others) % L) / L, tol).mean()
-            beat_term = float(pb - po)
-            division_term = 0.0
+            # Additive bars, at bar length: group starts against the other
+            # tatums (the beat level).
+            starts = np.concatenate([[0], np.cumsum(grouping)[:-1]])
+            inner = np.setdiff1d(np.arange(sum(grouping)), starts)
+            t = float(tatum)
+            pb = cyc.persistence_at(((x0 + starts[1:] * t) % L) / L, tol).mean()
+            po = cyc.persistence_at(((x0 + inner * t) % L) / L, tol).mean()
+            beat_term = float(pb - po) * scan.occupancy(x0, L, offsets, otol)
+            # Each group is a beat divided into its own number of tatums; as
+            # for equal beats, the division counts only for beats that stand out.
+            division_term = float(np.mean([_division_term(scan(tatum * k), ((x0 + start * t) % (k * t)) / (k * t), k)
+                                           for k, start in zip(grouping, starts)])) * max(float(pb - po), 0.0)
         unexplained = _unexplained(cyc, ((x0 + fine_grid) % L) / L, min(tol, 0.25 * fine / L))
-        beat_s = float(beat) * pulse_s
+        beat_s = (L / len(grouping) if grouping else float(beat)) * pulse_s  # uneven beats: their mean
         tempo_term = -0.5 * (np.log2(beat_s / s.beat_prior_s) / s.beat_prior_octaves) ** 2
         family = _family(n, division, grouping)
+        prior = s.class_prior[family] + (s.drum_duple_prior.get(n, 0.0) if drums and family == "simple" else 0.0)
         terms = {"bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
                  "unexplained": float(unexplained), "support": float(support), "tempo": float(tempo_term),
-                 "prior": s.class_prior[family]}
+                 "prior": prior}
         total = (s.w_bar * bar_term + s.w_beat * beat_term + s.w_division * division_term
-                 - s.w_unexplained * unexplained + s.w_support * support + s.w_tempo * tempo_term + s.class_prior[family])
+                 - s.w_unexplained * unexplained + s.w_support * support + s.w_tempo * tempo_term + prior)
         out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), terms, float(total)))
     return out
 
@@ -343,7 +406,8 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
     return min(diff, float(length_a) - diff) < 1e-6
 
 
-def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus") -> MetricTree:
+def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
+               drums: bool = False) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -355,10 +419,12 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     settings : TreeSettings
     engine : {"dionysus", "unionfind"}
         Persistence engine.
+    drums : bool
+        The events come from a drum kit (General MIDI drums).
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
-    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine)
+    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s)
     lattice = cycle_lattice()
     span_pulses = float(x.max() - x.min())
     cands: list[Candidate] = []
@@ -376,14 +442,14 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
                 div = d2["ratio"]
                 if (n == 1 and div == 2) or (n == 5 and div == 3):
                     continue  # a bar of one simple beat is the beat itself; 15/8 is too rare to propose
-                cands += _score_reading(scan, beat, div, n, None, sub, hi, pulse_s, s)
+                cands += _score_reading(scan, beat, div, n, None, sub, hi, pulse_s, s, drums)
         elif data["kind"] == "additive":
             tatum = lo
             if not 0.12 <= float(tatum) * pulse_s <= 0.5:
                 continue
             grouping = data["grouping"]
             beat = F(int(np.median(grouping))) * tatum
-            cands += _score_reading(scan, beat, None, len(grouping), grouping, tatum, hi, pulse_s, s)
+            cands += _score_reading(scan, beat, None, len(grouping), grouping, tatum, hi, pulse_s, s, drums)
     if not cands:
         raise ValueError("no reading fits the tempo range")
     cands.sort(key=lambda c: -c.score)
