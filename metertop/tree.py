@@ -261,9 +261,13 @@ def _reliability(cycle_weights: np.ndarray) -> float:
         return 0.0
     rival = int(np.argmax(cycle_weights[:, 1:].mean(axis=0))) + 1
     d = cycle_weights[:, 0] - cycle_weights[:, rival]
-    sd = d.std(ddof=1)
-    t = d.mean() / (sd / np.sqrt(len(d))) if sd > 0 else (np.inf if d.mean() > 0 else 0.0)
-    return float(t * t / (t * t + 4.0)) if t > 0 else 0.0
+    mean, sd = d.mean(), d.std(ddof=1)
+    if mean <= 0:
+        return 0.0
+    if sd <= 1e-12 * max(abs(mean), 1.0):
+        return 1.0  # the same difference in every bar
+    t = mean / (sd / np.sqrt(len(d)))
+    return float(t * t / (t * t + 4.0))
 
 
 def _division_term(beat_cycle: WrappedCycle, phase: float, division: int) -> float:
