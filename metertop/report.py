@@ -12,6 +12,10 @@ from .result import MetreResult
 __all__ = ["summary"]
 
 
+def _label(time_signature: str, grouping) -> str:
+    return f"{time_signature} ({'+'.join(map(str, grouping))})" if grouping else time_signature
+
+
 def _tree_line(result: MetreResult) -> str:
     names = [lv.name for lv in result.levels]
     return " > ".join(names)
@@ -48,7 +52,7 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     if result.notated_time_signature:
         agree = "matches" if result.notated_time_signature == result.time_signature else "differs from"
         lines.append(f"{indent}the file's own time signature {result.notated_time_signature} {agree} the proposal")
-    alts = [f"{a.time_signature} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
+    alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))
     return "\n".join(lines)

@@ -24,8 +24,8 @@ else persists.
     no other beat to stand out from); for 4 beats, half the margin of the
     half bar is added, because a true bar nests its half.
 ``beat``
-    margin of the beat at beat length, against its own subdivisions; for
-    additive bars, the mean relative persistence at group starts minus that
+    margin of the beat at beat length, against its own subdivisions, times
+    the share of subdivision positions that are played; for additive bars, the mean relative persistence at group starts minus that
     at the other tatums.
 ``division``
     at beat length: persistence at the halves against the thirds of the beat,
@@ -46,7 +46,8 @@ rival beat over the bars (:func:`_reliability`).
     a log-normal preference for beats near 0.6 s (Parncutt 1994; van Noorden
     & Moelants 1999, from memory).
 ``prior``
-    a small log-prior per family; additive bars need clearer evidence; for
+    a small log-prior per family; additive bars need clearer evidence; a
+    compound beat whose division is not heard is read as simple; for
     drum grooves, four beats are preferred to two (the backbeat falls on 2
     and 4 of a four-beat bar, common practice).
 
@@ -93,9 +94,10 @@ class TreeSettings:
     phase_candidates: int = 3
     hyper_min_dominance: float = 0.2
     # Log-prior per metre family; irregular bars need clearer evidence.
-    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": -0.05, "single": -0.15, "irregular": -0.15})
+    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": 0.0, "single": -0.15, "irregular": -0.15})
     # Drum grooves put the backbeat on beats 2 and 4 of a four-beat bar; a
     # two-beat bar is the rarer notation for the same groove (common practice).
+    unheard_compound_prior: float = -0.05
     drum_duple_prior: dict = field(default_factory=lambda: {2: -0.2})
 
 
@@ -324,7 +326,10 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             bc = scan(beat)
             bphase = (x0 % float(beat)) / float(beat)
             beat_margin = _margin(bc, bphase, min(0.25 / division, 0.12))
-            beat_term = beat_margin * scan.occupancy(x0, L, offsets, otol)
+            # As for the bar: a beat stands out only against subdivisions that
+            # are played; with none, the beat level is undecided here.
+            subs = (np.arange(1, division) * float(beat) / division)
+            beat_term = beat_margin * scan.occupancy(x0, float(beat), subs, otol) * scan.occupancy(x0, L, offsets, otol)
             # A division only counts for a beat that stands out: a length that
             # smears two beat positions together fills its "halves" trivially.
             division_term = _division_term(bc, bphase, division) * max(beat_margin, 0.0)
@@ -346,6 +351,8 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         tempo_term = -0.5 * (np.log2(beat_s / s.beat_prior_s) / s.beat_prior_octaves) ** 2
         family = _family(n, division, grouping)
         prior = s.class_prior[family] + (s.drum_duple_prior.get(n, 0.0) if drums and family == "simple" else 0.0)
+        if division == 3 and abs(division_term) < 0.02:
+            prior += s.unheard_compound_prior  # no subdivision heard: read the beat as simple
         terms = {"bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
                  "unexplained": float(unexplained), "support": float(support), "tempo": float(tempo_term),
                  "prior": prior}
