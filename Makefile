@@ -29,3 +29,6 @@ test: $(STAMP)
 
 clean-venv:
 	rm -rf $(VENV)
+
+bench: $(STAMP)
+	$(BIN)/python bench/speed.py --out docs/benchmarks.md
