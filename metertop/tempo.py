@@ -36,6 +36,7 @@ import numpy as np
 
 from .errors import InputError
 from .persistence import circle_diagram_unionfind
+from .scan import WrappedCycle, circular_bumps
 
 __all__ = ["PulseTrack", "TempoSettings", "track_pulse", "pulse_salience"]
 
@@ -131,7 +132,6 @@ def pulse_salience(times_s, weights, centres_s, half_width_s: float, periods_s, 
     t = np.asarray(times_s, dtype=np.float64)
     w = np.asarray(weights, dtype=np.float64)
     periods = np.asarray(periods_s, dtype=np.float64)
-    grid = np.arange(settings.n_bins) / settings.n_bins
     width = np.maximum(settings.jitter_s / periods, 0.5 / settings.n_bins)  # (J,)
     out = np.zeros((len(centres_s), len(periods)))
     for k, c in enumerate(centres_s):
@@ -140,11 +140,7 @@ def pulse_salience(times_s, weights, centres_s, half_width_s: float, periods_s, 
             continue
         x = t[lo:hi] - c
         taper = 0.5 + 0.5 * np.cos(np.pi * x / half_width_s)
-        g = taper * w[lo:hi]
-        phase = np.mod(x[:, None] / periods[None, :], 1.0)  # (n, J)
-        d = grid[None, None, :] - phase[:, :, None]
-        d -= np.round(d)
-        dens = np.einsum("n,njm->jm", g, np.exp(-0.5 * (d / width[None, :, None]) ** 2))
+        dens = circular_bumps(x[:, None] / periods[None, :], taper * w[lo:hi], settings.n_bins, width)
         dens /= half_width_s / periods[:, None]  # cycles covered by the taper
         # Essential-class persistence of a circle function is its range.
         essential = dens.max(axis=1) - dens.min(axis=1)
@@ -181,16 +177,8 @@ def _anchor_phase(t, w, c, half, period) -> float | None:
         return None
     x = t[lo:hi] - c
     g = (0.5 + 0.5 * np.cos(np.pi * x / half)) * w[lo:hi]
-    m = 48
-    grid = np.arange(m) / m
-    d = grid[None, :] - np.mod(x / period, 1.0)[:, None]
-    d -= np.round(d)
-    dens = (g[:, None] * np.exp(-0.5 * (d / max(0.03 / period, 0.02)) ** 2)).sum(0)
-    top = int(circle_diagram_unionfind(dens).peaks[0])
-    left, mid, right = dens[(top - 1) % m], dens[top], dens[(top + 1) % m]
-    denom = left - 2 * mid + right
-    shift = 0.5 * (left - right) / denom if denom < 0 else 0.0
-    return float(((top + np.clip(shift, -0.5, 0.5)) / m) % 1.0)
+    dens = circular_bumps(x / period, g, 48, max(0.03 / period, 0.02))
+    return float(WrappedCycle(period, dens, circle_diagram_unionfind(dens)).peak_phases[0])
 
 
 def track_pulse(times_s, weights, settings: TempoSettings = TempoSettings(), period_hint_s: float | None = None) -> PulseTrack:
