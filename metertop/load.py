@@ -179,8 +179,11 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
     if os.path.getsize(path) == 0:
         raise InputError(f"{path}: file is empty")
     suffix = os.path.splitext(path)[1].lower()
-    with open(path, "rb") as fh:
-        head = fh.read(4)
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(4)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     if head == b"MThd" or suffix in MIDI_SUFFIXES:
         return _load_midi(path, tracks)
     if tracks:
@@ -251,6 +254,8 @@ def _load_onset_list(path: str) -> NoteTable:
         with open(path, "rb") as fh:
             raw = fh.read()
         text = raw.decode("utf-8-sig")
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     except UnicodeDecodeError:
         raise InputError(f"{path}: not UTF-8 text; onset lists must be UTF-8 CSV, TSV or JSON") from None
     stripped = text.strip()
