@@ -166,11 +166,14 @@ _ROLE_WEIGHT = {ROLE_KICK: 1.0, ROLE_SNARE: 0.7, ROLE_CRASH: 0.9, ROLE_TOM: 0.45
 
 
 def role_accent(events: EventStream) -> np.ndarray:
-    """Largest role weight among an event's drum notes; 0.5 for pitched-only events."""
+    """Drum-role accent: half the sum of the role weights of an event's drum notes, at most 1; 0.5 for pitched-only events.
+
+    Summing lets a crash on a kick (a phrase start) outweigh a kick alone.
+    """
     out = np.zeros(len(events))
     for bit, w in _ROLE_WEIGHT.items():
-        out = np.where(events.roles & bit, np.maximum(out, w), out)
-    return np.where(events.roles == 0, 0.5, out)
+        out += np.where(events.roles & bit, w, 0.0)
+    return np.where(events.roles == 0, 0.5, np.minimum(0.5 * out, 1.0))
 
 
 @dataclass(frozen=True)
@@ -180,7 +183,7 @@ class AccentMix:
     base: float = 0.3
     durational: float = 1.0
     melodic: float = 0.4
-    dynamic: float = 0.5
+    dynamic: float = 0.8
     role: float = 1.0
     chord: float = 0.15
     bass: float = 0.4

@@ -92,14 +92,19 @@ class NoteTable:
 
 
 def _finish(onsets_s, durations_s, pitches, velocities, weights, is_drum, track, **meta) -> NoteTable:
-    """Sort, drop exact duplicates (same time and pitch) and build the table."""
+    """Sort, drop exact duplicates (same time and pitch) and build the table.
+
+    A drum hit and a pitched note with the same number (a kick on 36 and a
+    bass C2) are different notes, so the drum flag is part of the key.
+    """
     onsets_s = np.asarray(onsets_s, dtype=np.float64)
     pitches = np.asarray(pitches, dtype=np.int64)
-    order = np.lexsort((pitches, onsets_s))
+    is_drum = np.asarray(is_drum, dtype=bool)
+    order = np.lexsort((is_drum, pitches, onsets_s))
     arrays = [np.asarray(a)[order] for a in (onsets_s, durations_s, pitches, velocities, weights, is_drum, track)]
-    t, p = arrays[0], arrays[2]
+    t, p, d = arrays[0], arrays[2], arrays[5]
     keep = np.ones(len(t), dtype=bool)
-    keep[1:] = ~((t[1:] == t[:-1]) & (p[1:] == p[:-1]))
+    keep[1:] = ~((t[1:] == t[:-1]) & (p[1:] == p[:-1]) & (d[1:] == d[:-1]))
     arrays = [a[keep] for a in arrays]
     return NoteTable(
         onsets_s=arrays[0].astype(np.float64),

@@ -145,7 +145,8 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
             continue
         node = tree.graph.nodes[name]
         length = float(node["length"])
-        first = pulse.unwarp([best.downbeat_pulses + np.ceil((pulse.warp([t0 - tol])[0] - best.downbeat_pulses) / length) * length])[0]
+        start = node.get("start", best.downbeat_pulses)
+        first = pulse.unwarp([start + np.ceil((pulse.warp([t0 - tol])[0] - start) / length) * length])[0]
         levels.append(Level(name, length * pulse_s, float(first), node["score"], node["confidence"]))
     alternatives = _alternatives(tree, pulse, t0, tol, settings.n_alternatives)
     notated = f"{notes.time_signatures[0]}" if notes.time_signatures else None

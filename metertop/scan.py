@@ -80,6 +80,8 @@ def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
     d = np.minimum(d, 1.0 - d)
     kernel = np.exp(-0.5 * (d[None, :] / widths[:, None]) ** 2)
     out = np.fft.irfft(np.fft.rfft(hist, axis=1) * np.fft.rfft(kernel, axis=1), n=fine, axis=1)[:, ::_OVERSAMPLE]
+    # Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
+    out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
     return out[0] if one else out
 
 
@@ -200,7 +202,8 @@ def wrap_cycle(positions, weights, length: float, bins_per_unit: int = 12, width
         Cycle length.
     bins_per_unit : int
         Bins per unit of position; the circle gets ``ceil(length * bins_per_unit)``
-        bins, at least 12 and at most ``max_bins``.
+        bins, at least 12 and at most ``max_bins``; past the cap the bumps
+        widen to about 2.5 bins.
     width_units : float
         Bump width in position units (converted to a cycle fraction).
     engine : {"dionysus", "unionfind"}
@@ -213,7 +216,10 @@ def wrap_cycle(positions, weights, length: float, bins_per_unit: int = 12, width
     (0.0, True)
     """
     n_bins = int(min(max(np.ceil(length * bins_per_unit), 12), max_bins))
-    dens = wrapped_density(positions, weights, length, n_bins, width_units / length, span=span)
+    # Where the bin cap bites (long cycles), widen the bumps to keep about
+    # 2.5 bins per standard deviation; narrower bumps would fall between bins.
+    width = max(width_units / length, 2.5 / n_bins if n_bins == max_bins else 0.0)
+    dens = wrapped_density(positions, weights, length, n_bins, width, span=span)
     return WrappedCycle(float(length), dens, circle_diagram(dens, engine=engine))
 
 

@@ -25,7 +25,9 @@ else persists.
     half bar is added, because a true bar nests its half.
 ``beat``
     margin of the beat at beat length, against its own subdivisions, times
-    the share of subdivision positions that are played; for additive bars, the mean relative persistence at group starts minus that
+    ``(1 + share of subdivision positions played) / 2``: a margin against
+    empty subdivisions is half evidence, since a subdivision level with no
+    notes cannot be told from none; for additive bars, the mean relative persistence at group starts minus that
     at the other tatums.
 ``division``
     at beat length: persistence at the halves against the thirds of the beat,
@@ -41,13 +43,14 @@ positions (the other beats; all beats) that carry an onset: a cycle shorter
 than the pulse folds every onset onto one phase and so has a perfect
 margin, but most of its beats are empty. The bar margin is also weighted by
 its reliability, a paired t statistic of the downbeat against its strongest
-rival beat over the bars (:func:`_reliability`).
+rival position of the subdivision grid over the bars (:func:`_reliability`).
 ``tempo``
     a log-normal preference for beats near 0.6 s (Parncutt 1994; van Noorden
     & Moelants 1999, from memory).
 ``prior``
     a small log-prior per family; additive bars need clearer evidence; a
-    compound beat whose division is not heard is read as simple; for
+    compound beat needs division evidence of 0.1 to escape a penalty of
+    0.1 (without it the beat reads as simple); for
     drum grooves, four beats are preferred to two (the backbeat falls on 2
     and 4 of a four-beat bar, common practice).
 
@@ -79,12 +82,12 @@ class TreeSettings:
     w_bar: float = 1.0
     w_beat: float = 0.6
     w_division: float = 0.35
-    w_tempo: float = 0.5
+    w_tempo: float = 0.8
     w_support: float = 0.5
     w_unexplained: float = 1.0
     w_half_bar: float = 0.6
     beat_prior_s: float = 0.6
-    beat_prior_octaves: float = 0.8
+    beat_prior_octaves: float = 1.0
     min_beat_s: float = 0.2
     max_beat_s: float = 2.0
     max_bar_s: float = 8.0
@@ -92,12 +95,12 @@ class TreeSettings:
     width_s: float = 0.025  # bump width: jitter left after the warp
     min_width_pulses: float = 0.03
     phase_candidates: int = 3
-    hyper_min_dominance: float = 0.2
+    hyper_min_evidence: float = 0.15
     # Log-prior per metre family; irregular bars need clearer evidence.
     class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": 0.0, "single": -0.15, "irregular": -0.15})
     # Drum grooves put the backbeat on beats 2 and 4 of a four-beat bar; a
     # two-beat bar is the rarer notation for the same groove (common practice).
-    unheard_compound_prior: float = -0.05
+    unheard_compound_prior: float = -0.1
     drum_duple_prior: dict = field(default_factory=lambda: {2: -0.2})
 
 
@@ -244,10 +247,17 @@ def _margin(cyc: WrappedCycle, phase: float, tol: float) -> float:
     return float(cyc.persistence_at([phase], tol)[0]) - _others_max(cyc, phase, tol)
 
 
-def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, offsets: np.ndarray, tol: float, otol: float) -> float:
-    """Margin of the downbeat at bar length, weighted by how many other beats carry onsets and by its reliability."""
+def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, offsets: np.ndarray, sub: float, tol: float,
+                  otol: float) -> float:
+    """Margin of the downbeat at bar length, weighted by how many other beats carry onsets and by its reliability.
+
+    The margin compares the downbeat with every other peak, so the
+    reliability compares it with every other position of the subdivision
+    grid (``sub`` apart), not only with the beats.
+    """
     occupied = scan.occupancy(x0, L, offsets[1:], otol)
-    return _margin(cyc, x0 / L, tol) * occupied * _reliability(scan.grid_weights(x0, L, offsets, otol))
+    grid = np.arange(int(round(L / sub))) * sub
+    return _margin(cyc, x0 / L, tol) * occupied * _reliability(scan.grid_weights(x0, L, grid, otol))
 
 
 def _reliability(cycle_weights: np.ndarray) -> float:
@@ -264,9 +274,10 @@ def _reliability(cycle_weights: np.ndarray) -> float:
     rival = int(np.argmax(cycle_weights[:, 1:].mean(axis=0))) + 1
     d = cycle_weights[:, 0] - cycle_weights[:, rival]
     mean, sd = d.mean(), d.std(ddof=1)
-    if mean <= 0:
+    scale = float(np.abs(cycle_weights).max()) or 1.0
+    if mean <= 1e-9 * scale:
         return 0.0
-    if sd <= 1e-12 * max(abs(mean), 1.0):
+    if sd <= 1e-9 * scale:
         return 1.0  # the same difference in every bar
     t = mean / (sd / np.sqrt(len(d)))
     return float(t * t / (t * t + 4.0))
@@ -316,11 +327,11 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         offsets = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum) if grouping else np.arange(n) * float(beat)
         otol = float(sub) * 0.25
         support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
-        bar_term = _bar_evidence(scan, cyc, x0, L, offsets, tol, otol) if n > 1 else 0.0
+        bar_term = _bar_evidence(scan, cyc, x0, L, offsets, float(sub), tol, otol) if n > 1 else 0.0
         # Nesting: a bar of four beats also shows its half bar.
         if grouping is None and n == 4:
             half = bar / 2
-            bar_term += s.w_half_bar * _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], 2 * tol, otol)
+            bar_term += s.w_half_bar * _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], float(sub), 2 * tol, otol)
         if grouping is None:
             # The beat against its own subdivisions, at beat length.
             bc = scan(beat)
@@ -329,10 +340,12 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             # As for the bar: a beat stands out only against subdivisions that
             # are played; with none, the beat level is undecided here.
             subs = (np.arange(1, division) * float(beat) / division)
-            beat_term = beat_margin * scan.occupancy(x0, float(beat), subs, otol) * scan.occupancy(x0, L, offsets, otol)
-            # A division only counts for a beat that stands out: a length that
-            # smears two beat positions together fills its "halves" trivially.
-            division_term = _division_term(bc, bphase, division) * max(beat_margin, 0.0)
+            beats_played = scan.occupancy(x0, L, offsets, otol)
+            beat_term = beat_margin * (0.5 + 0.5 * scan.occupancy(x0, float(beat), subs, otol)) * beats_played
+            # A division only counts for a beat that stands out and is played: a
+            # length that smears two beat positions together fills its
+            # "halves" trivially.
+            division_term = _division_term(bc, bphase, division) * max(beat_margin, 0.0) * beats_played
         else:
             # Additive bars, at bar length: group starts against the other
             # tatums (the beat level).
@@ -351,8 +364,10 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         tempo_term = -0.5 * (np.log2(beat_s / s.beat_prior_s) / s.beat_prior_octaves) ** 2
         family = _family(n, division, grouping)
         prior = s.class_prior[family] + (s.drum_duple_prior.get(n, 0.0) if drums and family == "simple" else 0.0)
-        if division == 3 and abs(division_term) < 0.02:
-            prior += s.unheard_compound_prior  # no subdivision heard: read the beat as simple
+        if division == 3:
+            # A compound beat must show its division in three; without that
+            # evidence the beat reads as simple.
+            prior += s.unheard_compound_prior * (1.0 - float(np.clip(division_term / 0.1, 0.0, 1.0)))
         terms = {"bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
                  "unexplained": float(unexplained), "support": float(support), "tempo": float(tempo_term),
                  "prior": prior}
@@ -468,33 +483,43 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     p = np.exp((scores - scores.max()) / s.temperature)
     p /= p.sum()
     best = cands[0]
-    hyper, hyper_score = _hypermeasure(scan, best, s)
-    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score)
+    hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
+    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
     return MetricTree(cands, p, graph, scan.cache, hyper)
 
 
-def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int | None, float]:
-    """Bars per hypermeasure: the multiple of the bar whose downbeat dominates most."""
+def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int | None, float, float]:
+    """Bars per hypermeasure, its score, and the position (pulses) of its first downbeat.
+
+    For each multiple of the bar, the hypermeasure starts on the bar downbeat
+    that weighs most, bar by bar; its evidence is that position's persistence
+    margin times the reliability of its weight against the other downbeats,
+    bar by bar (as for the bar itself). The multiple with the most evidence
+    wins if it reaches ``hyper_min_evidence``.
+    """
     span = float(scan.positions.max() - scan.positions.min())
-    best_k, best_dom = None, 0.0
-    for k in (2, 4, 8):
-        length = best.bar * k
-        if float(length) * 2 > span:
+    bar = float(best.bar)
+    tol = min(0.25 * float(best.beat) / bar, 0.12)
+    otol = 0.25 * float(best.tatum if best.grouping else best.beat / best.division)
+    best_k, best_ev, best_start = None, 0.0, best.downbeat_pulses
+    for k in (2, 3, 4, 8):
+        length = bar * k
+        if 3 * length > span:
             break
-        cyc = scan(length)
-        top = float(cyc.peak_phases[0]) * float(length)
-        # The hypermeasure must start on a downbeat.
-        off = (top - best.downbeat_pulses) % float(best.bar)
-        if min(off, float(best.bar) - off) > 0.25 * float(best.beat):
-            continue
-        if cyc.dominance > best_dom:
-            best_k, best_dom = k, cyc.dominance
-    if best_dom < s.hyper_min_dominance:
-        return None, best_dom
-    return best_k, best_dom
+        cyc = scan(best.bar * k)
+        offsets = np.arange(k) * bar
+        # The candidate start is the bar downbeat that weighs most, bar by bar.
+        j = int(np.argmax(scan.grid_weights(best.downbeat_pulses, length, offsets, otol).mean(axis=0)))
+        start = float((best.downbeat_pulses + j * bar) % length)
+        ev = _margin(cyc, start / length, tol / k) * _reliability(scan.grid_weights(start, length, offsets, otol))
+        if ev > best_ev:
+            best_k, best_ev, best_start = k, ev, start
+    if best_ev < s.hyper_min_evidence:
+        return None, best_ev, best_start
+    return best_k, best_ev, best_start
 
 
-def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score) -> nx.DiGraph:
+def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score, hyper_start) -> nx.DiGraph:
     g = nx.DiGraph()
     sub_len = best.tatum if best.grouping else best.beat / best.division
     conf = {lv: float(sum(pi for c, pi in zip(cands, p) if _agree(best, c, lv))) for lv in ("subdivision", "beat", "bar")}
@@ -505,6 +530,7 @@ def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score) -
     g.add_edge("subdivision", "beat", ratio=(best.grouping if best.grouping else best.division))
     g.add_edge("beat", "bar", ratio=best.beats_per_bar)
     if hyper is not None:
-        g.add_node("hypermeasure", length=best.bar * hyper, score=float(hyper_score), confidence=float(min(max(hyper_score, 0.0), 1.0)))
+        g.add_node("hypermeasure", length=best.bar * hyper, score=float(hyper_score), confidence=float(min(max(hyper_score, 0.0), 1.0)),
+                   start=hyper_start)
         g.add_edge("bar", "hypermeasure", ratio=hyper)
     return g
