@@ -49,9 +49,14 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     first = f"{result.downbeats_s[0]:.3f} s" if len(result.downbeats_s) else "none"
     lines.append(f"{indent}first downbeat {first}; {len(result.downbeats_s)} bars, {len(result.beats_s)} beats "
                  f"over {result.duration_s:.1f} s ({result.n_events} events)")
-    if result.notated_time_signature:
-        agree = "matches" if result.notated_time_signature == result.time_signature else "differs from"
-        lines.append(f"{indent}the file's own time signature {result.notated_time_signature} {agree} the proposal")
+    notated = result.notated_time_signature
+    if notated == result.time_signature:
+        lines.append(f"{indent}the file's own time signature {notated} matches the proposal")
+    elif notated == "4/4":
+        lines.append(f"{indent}the file says 4/4, but the playing points to {result.time_signature}; "
+                     f"sequencers write 4/4 when nobody sets a time signature")
+    elif notated:
+        lines.append(f"{indent}the file says {notated}, but the playing points to {result.time_signature}")
     alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))

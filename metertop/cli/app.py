@@ -63,7 +63,8 @@ def analyse_cmd(
         try:
             result = analyse(path, tracks=list(track) if track else None, settings=settings)
         except MetertopError as exc:
-            typer.echo(f"metertop: error: {exc}", err=True)
+            message = str(exc)
+            typer.echo(f"metertop: error: {message if str(path) in message else f'{path}: {message}'}", err=True)
             failed += 1
             continue
         if json_out:
