@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench install clean-venv check-boost
+.PHONY: demo test bench bench-full bench-speed install clean-venv check-boost
 
 install: $(STAMP)
 
@@ -31,4 +31,10 @@ clean-venv:
 	rm -rf $(VENV)
 
 bench: $(STAMP)
-	$(BIN)/python bench/speed.py --out docs/benchmarks.md
+	$(BIN)/python bench/run.py
+
+bench-full: $(STAMP)
+	$(BIN)/python bench/run.py --full
+
+bench-speed: $(STAMP)
+	$(BIN)/python bench/speed.py

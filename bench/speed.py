@@ -1,6 +1,6 @@
 """Speed benchmark: metertop against pretty_midi's parse of the same file, in one run.
 
-Usage: python bench/speed.py [--out docs/benchmarks.md]
+Usage: python bench/speed.py   (bench/run.py includes this table in docs/benchmarks.md)
 
 A 3-minute drum groove (about 2,000 onsets, sixteenth-note hi-hats, kick and
 snare, crashes every four bars, seeded timing noise) is written to
@@ -63,12 +63,8 @@ def median_time(fn, repeats: int) -> float:
     return statistics.median(times)
 
 
-def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--out", type=Path, default=None, help="Markdown file to write the table to.")
-    parser.add_argument("--repeats", type=int, default=7)
-    args = parser.parse_args()
-
+def speed_table(repeats: int = 7) -> tuple[str, dict]:
+    """Time pretty_midi's parse, metertop's analysis and the CLI on a 3-minute groove; a markdown table and the figures."""
     import pretty_midi
 
     import metertop
@@ -77,11 +73,11 @@ def main() -> int:
     groove = OUT / "groove_3min.mid"
     n_notes = write_groove(groove)
     notes = load_notes(groove)
-    parse_s = median_time(lambda: pretty_midi.PrettyMIDI(str(groove)), args.repeats)
-    analyse_s = median_time(lambda: metertop.analyse(notes), args.repeats)
+    parse_s = median_time(lambda: pretty_midi.PrettyMIDI(str(groove)), repeats)
+    analyse_s = median_time(lambda: metertop.analyse(notes), repeats)
     cli = ROOT / ".venv" / "bin" / "metertop"
     cli_cmd = [str(cli)] if cli.exists() else [sys.executable, "-m", "metertop"]
-    wall_s = median_time(lambda: subprocess.run(cli_cmd + ["analyse", str(groove)], check=True, capture_output=True), args.repeats)
+    wall_s = median_time(lambda: subprocess.run(cli_cmd + ["analyse", str(groove)], check=True, capture_output=True), repeats)
     result = metertop.analyse(notes)
     rows = [
         ("file", f"3-minute drum groove, {n_notes} notes, {result.n_events} events"),
@@ -91,13 +87,17 @@ def main() -> int:
         ("ratio analysis / parse", f"{analyse_s / parse_s:.1f}x"),
         ("`metertop analyse` wall time incl. start-up, median", f"{wall_s * 1000:.0f} ms"),
     ]
-    table = "| measure | value |\n|---|---|\n" + "\n".join(f"| {k} | {v} |" for k, v in rows)
+    table = (f"Median of {repeats} runs.\n\n| measure | value |\n|---|---|\n" + "\n".join(f"| {k} | {v} |" for k, v in rows))
+    figures = {"notes": n_notes, "parse_s": parse_s, "analyse_s": analyse_s, "ratio": analyse_s / parse_s, "cli_wall_s": wall_s}
+    return table, figures
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeats", type=int, default=7)
+    args = parser.parse_args()
+    table, _ = speed_table(args.repeats)
     print(table)
-    if args.out:
-        stamp = dt.date.today().isoformat()
-        text = (f"# Benchmarks\n\n## Speed\n\nMeasured {stamp} with `make bench` (`python bench/speed.py`), "
-                f"median of {args.repeats} runs, on this 2-core machine.\n\n{table}\n")
-        args.out.write_text(text)
     return 0
 
 
