@@ -91,7 +91,26 @@ def predict_baseline(perf: Performance) -> dict:
 PREDICT = {"metertop": predict_metertop, "baseline": predict_baseline}
 
 
+def _parse_seconds(perf: Performance) -> float:
+    """pretty_midi's parse time of the piece written as a MIDI file (median of 3), for the speed ratio."""
+    import tempfile
+
+    import pretty_midi
+    from grooves import write_midi
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "piece.mid"
+        write_midi(perf, path)
+        times = []
+        for _ in range(3):
+            start = time.perf_counter()
+            pretty_midi.PrettyMIDI(str(path))
+            times.append(time.perf_counter() - start)
+    return float(np.median(times))
+
+
 def _run_one(perf: Performance) -> list[dict]:
+    parse_s = _parse_seconds(perf) if perf.kind == "groove" else float("nan")
     rows = []
     for name in DETECTORS:
         try:
@@ -106,6 +125,7 @@ def _run_one(perf: Performance) -> list[dict]:
             if perf.hypermeasure_bars is not None:
                 row["hyper_ok"] = False
         row["detector"] = name
+        row["parse_seconds"] = parse_s
         rows.append(row)
     return rows
 
@@ -177,6 +197,25 @@ def tables(rows: list[dict]) -> tuple[str, dict]:
     return "\n".join(md), figures
 
 
+def per_piece_speed(rows: list[dict], figures: dict) -> str:
+    """Median analysis time per piece, and its ratio to pretty_midi's parse of the same file (grooves)."""
+    lines = ["Per piece, in this run (inside the worker processes, after loading):", "",
+             "| set | metertop, median | baseline, median | metertop / pretty_midi parse, median |", "|---|---|---|---|"]
+    for kind, title in SETS:
+        m = [r for r in rows if r["kind"] == kind and r["detector"] == "metertop" and np.isfinite(r["seconds"])]
+        b = [r for r in rows if r["kind"] == kind and r["detector"] == "baseline" and np.isfinite(r["seconds"])]
+        if not m:
+            continue
+        ratio = [r["seconds"] / r["parse_seconds"] for r in m if np.isfinite(r.get("parse_seconds", np.nan))]
+        ratio_txt = f"{np.median(ratio):.1f}x" if ratio else "-"
+        figures.setdefault("per piece", {})[title] = {"metertop_s": float(np.median([r["seconds"] for r in m])),
+                                                       "baseline_s": float(np.median([r["seconds"] for r in b])) if b else None,
+                                                       "ratio_to_parse": float(np.median(ratio)) if ratio else None}
+        lines.append(f"| {title} | {np.median([r['seconds'] for r in m]) * 1000:.0f} ms | "
+                     f"{np.median([r['seconds'] for r in b]) * 1000:.0f} ms | {ratio_txt} |")
+    return "\n".join(lines)
+
+
 def confusion_md(rows: list[dict], kind: str, detector: str) -> str:
     sel = [r for r in rows if r["kind"] == kind and r["detector"] == detector]
     if not sel:
@@ -206,6 +245,7 @@ def main() -> int:
     from speed import speed_table
 
     speed_md, speed_figures = speed_table()
+    speed_md += "\n\n" + per_piece_speed(rows, speed_figures)
     elapsed = time.time() - t0
     stamp = dt.date.today().isoformat()
     command = "make bench-full" if args.full else "make bench"
