@@ -11,51 +11,42 @@ Conventions
 - Each reading has a downbeat position: one of the most persistent peaks of
   the wrapped density at its bar length.
 
-Scoring
--------
-Every term is read off the merge trees of the wrapped densities
+Evidence
+--------
+Every reading is measured on the merge trees of the wrapped densities
 (:mod:`metertop.scan`), so the topology decides. The *margin* of a position
 in a cycle is its relative persistence minus the largest relative
 persistence of any other peak: 1 when it is the essential peak and nothing
 else persists.
 
 ``bar``
-    margin of the downbeat at bar length (bars of one beat earn 0: they have
-    no other beat to stand out from); for 4 beats, half the margin of the
-    half bar is added, because a true bar nests its half.
+    margin of the downbeat at bar length, times the share of the other beats
+    that carry an onset (a cycle shorter than the pulse folds every onset
+    onto one phase and so has a perfect margin, but its other beats are
+    empty), times its reliability: a paired t statistic of the downbeat
+    against its strongest rival position of the subdivision grid over the
+    bars (:func:`_reliability`). Bars of one beat earn 0; a four-beat bar
+    adds ``w_half_bar`` times its half bar's evidence, because a true bar
+    nests its half.
 ``beat``
     margin of the beat at beat length, against its own subdivisions, times
-    ``(1 + share of subdivision positions played) / 2``: a margin against
-    empty subdivisions is half evidence, since a subdivision level with no
-    notes cannot be told from none; for additive bars, the mean relative persistence at group starts minus that
-    at the other tatums.
+    ``(1 + share of subdivision positions played) / 2`` (a subdivision level
+    with no notes cannot be told from none) and the share of beats played;
+    for additive bars, the mean relative persistence at group starts minus
+    that at the other tatums.
 ``division``
     at beat length: persistence at the halves against the thirds of the beat,
-    times the beat's own margin.
+    times the beat's own margin and the share of beats played.
 ``unexplained``
     the share of persistence in peaks off the reading's finest grid (two
-    levels below the beat), a penalty.
+    levels below the beat).
 ``support``
     the log share of downbeats that carry an onset.
 
-The bar and beat margins are multiplied by the share of the compared
-positions (the other beats; all beats) that carry an onset: a cycle shorter
-than the pulse folds every onset onto one phase and so has a perfect
-margin, but most of its beats are empty. The bar margin is also weighted by
-its reliability, a paired t statistic of the downbeat against its strongest
-rival position of the subdivision grid over the bars (:func:`_reliability`).
-``tempo``
-    a log-normal preference for beats near 0.6 s (Parncutt 1994; van Noorden
-    & Moelants 1999, from memory).
-``prior``
-    a small log-prior per family; additive bars need clearer evidence; a
-    compound beat needs division evidence of 0.1 to escape a penalty of
-    0.1 (without it the beat reads as simple); for
-    drum grooves, four beats are preferred to two (the backbeat falls on 2
-    and 4 of a four-beat bar, common practice).
-
-The scores pass through a softmax into probabilities; the confidence of a
-level is the total probability of the readings that agree on it.
+With the reading's tempo and shape these are the features of
+:mod:`metertop.model`, whose linear score and softmax give the ranking and
+the probabilities; the confidence of a level is the total probability of
+the readings that agree on it.
 """
 
 from __future__ import annotations
@@ -66,6 +57,7 @@ from fractions import Fraction
 import networkx as nx
 import numpy as np
 
+from .model import ReadingModel, default_model
 from .scan import WrappedCycle, wrap_cycle
 
 __all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "time_signature_of"]
@@ -77,31 +69,18 @@ ADDITIVE = ((3, 2), (2, 3), (2, 2, 3), (2, 3, 2), (3, 2, 2))
 
 @dataclass(frozen=True)
 class TreeSettings:
-    """Weights and priors of the reading score."""
+    """How readings are measured, and the model that scores them."""
 
-    w_bar: float = 1.0
-    w_beat: float = 0.6
-    w_division: float = 0.35
-    w_tempo: float = 0.8
-    w_support: float = 0.5
-    w_unexplained: float = 1.0
-    w_half_bar: float = 0.6
-    beat_prior_s: float = 0.6
-    beat_prior_octaves: float = 1.0
+    w_half_bar: float = 0.6  # a four-beat bar adds this share of its half bar's evidence
+    beat_reference_s: float = 0.6  # tempo features count octaves from here
     min_beat_s: float = 0.2
     max_beat_s: float = 2.0
     max_bar_s: float = 8.0
-    temperature: float = 0.12
     width_s: float = 0.025  # bump width: jitter left after the warp
     min_width_pulses: float = 0.03
     phase_candidates: int = 3
     hyper_min_evidence: float = 0.15
-    # Log-prior per metre family; irregular bars need clearer evidence.
-    class_prior: dict = field(default_factory=lambda: {"simple": 0.0, "compound": 0.0, "single": -0.15, "irregular": -0.15})
-    # Drum grooves put the backbeat on beats 2 and 4 of a four-beat bar; a
-    # two-beat bar is the rarer notation for the same groove (common practice).
-    unheard_compound_prior: float = -0.1
-    drum_duple_prior: dict = field(default_factory=lambda: {2: -0.2})
+    model: ReadingModel = field(default_factory=default_model)
 
 
 @dataclass(frozen=True)
@@ -361,19 +340,23 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
                                            for k, start in zip(grouping, starts)])) * max(float(pb - po), 0.0)
         unexplained = _unexplained(cyc, ((x0 + fine_grid) % L) / L, min(tol, 0.25 * fine / L))
         beat_s = (L / len(grouping) if grouping else float(beat)) * pulse_s  # uneven beats: their mean
-        tempo_term = -0.5 * (np.log2(beat_s / s.beat_prior_s) / s.beat_prior_octaves) ** 2
         family = _family(n, division, grouping)
-        prior = s.class_prior[family] + (s.drum_duple_prior.get(n, 0.0) if drums and family == "simple" else 0.0)
-        if division == 3:
-            # A compound beat must show its division in three; without that
-            # evidence the beat reads as simple.
-            prior += s.unheard_compound_prior * (1.0 - float(np.clip(division_term / 0.1, 0.0, 1.0)))
-        terms = {"bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
-                 "unexplained": float(unexplained), "support": float(support), "tempo": float(tempo_term),
-                 "prior": prior}
-        total = (s.w_bar * bar_term + s.w_beat * beat_term + s.w_division * division_term
-                 - s.w_unexplained * unexplained + s.w_support * support + s.w_tempo * tempo_term + prior)
-        out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), terms, float(total)))
+        log_beat = float(np.log2(beat_s / s.beat_reference_s))
+        features = {
+            "bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
+            "unexplained": float(unexplained), "support": float(support),
+            "log_beat": log_beat, "log_beat_sq": log_beat ** 2,
+            "compound": float(family == "compound"), "single": float(family == "single"),
+            "irregular": float(family == "irregular"),
+            "beats2": float(grouping is None and n == 2), "beats3": float(grouping is None and n == 3),
+            "beats4": float(grouping is None and n == 4), "beats5": float(grouping is None and n == 5),
+            # A compound beat must show its division in three.
+            "compound_unheard": (1.0 - float(np.clip(division_term / 0.1, 0.0, 1.0))) if division == 3 else 0.0,
+            "drums_beats2": float(drums and family == "simple" and n == 2),
+            "drums_beats4": float(drums and family == "simple" and n == 4),
+            "drums_compound": float(drums and family == "compound"),
+        }
+        out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), features, s.model.score(features)))
     return out
 
 
@@ -479,9 +462,7 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     if not cands:
         raise ValueError("no reading fits the tempo range")
     cands.sort(key=lambda c: -c.score)
-    scores = np.array([c.score for c in cands])
-    p = np.exp((scores - scores.max()) / s.temperature)
-    p /= p.sum()
+    p = s.model.probabilities([c.score for c in cands])
     best = cands[0]
     hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
     graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
