@@ -8,14 +8,16 @@ the probabilities of the readings of one piece are ``softmax(score / T)``:
 a conditional logit model.
 
 - Persistence evidence (read off merge trees of wrapped densities):
-  ``bar``, ``beat``, ``division``, ``unexplained``.
+  ``bar``, ``half_bar``, ``double_bar``, ``beat``, ``division``,
+  ``unexplained`` (see :mod:`metertop.tree`).
 - Occupancy: ``support``, the log share of downbeats that carry an onset.
 - Tempo: ``log_beat`` and ``log_beat_sq``, the beat period in octaves from
   0.6 s and its square.
 - The reading's shape: ``compound``, ``single``, ``irregular``, ``beats2`` to
   ``beats5``, ``compound_unheard`` (a compound beat without evidence of its
   division), and for drum kits ``drums_beats2``, ``drums_beats4``,
-  ``drums_compound``.
+  ``drums_compound`` and the evidence again (``drums_bar``, ...), so that
+  drum grooves can weigh it differently from melodies.
 
 The coefficients ship as JSON in ``metertop/data/reading_model.json``. The
 file in the repository was fitted by ``bench/train.py`` on the training
@@ -34,16 +36,17 @@ import numpy as np
 
 __all__ = ["FEATURES", "PERSISTENCE_FEATURES", "ReadingModel", "default_model", "HAND_SET"]
 
-PERSISTENCE_FEATURES = ("bar", "beat", "division", "unexplained")
+PERSISTENCE_FEATURES = ("bar", "half_bar", "double_bar", "beat", "division", "unexplained")
 FEATURES = PERSISTENCE_FEATURES + (
     "support", "log_beat", "log_beat_sq",
     "compound", "single", "irregular", "beats2", "beats3", "beats4", "beats5",
     "compound_unheard", "drums_beats2", "drums_beats4", "drums_compound",
+    "drums_bar", "drums_half_bar", "drums_double_bar", "drums_beat", "drums_division",
 )
 
 # The weights chosen by hand before any fit (see docs/method.md).
 HAND_SET = {
-    "weights": {"bar": 1.0, "beat": 0.6, "division": 0.35, "unexplained": -1.0, "support": 0.5,
+    "weights": {"bar": 1.0, "half_bar": 0.6, "beat": 0.6, "division": 0.35, "unexplained": -1.0, "support": 0.5,
                 "log_beat": 0.0, "log_beat_sq": -0.4, "single": -0.15, "irregular": -0.15,
                 "compound_unheard": -0.1, "drums_beats2": -0.2},
     "temperature": 0.12,

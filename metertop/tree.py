@@ -25,9 +25,13 @@ else persists.
     onto one phase and so has a perfect margin, but its other beats are
     empty), times its reliability: a paired t statistic of the downbeat
     against its strongest rival position of the subdivision grid over the
-    bars (:func:`_reliability`). Bars of one beat earn 0; a four-beat bar
-    adds ``w_half_bar`` times its half bar's evidence, because a true bar
-    nests its half.
+    bars (:func:`_reliability`). Bars of one beat earn 0.
+``half_bar``
+    for four-beat bars, the same evidence for the half bar: a true bar nests
+    its half.
+``double_bar``
+    the same evidence for a downbeat every other bar: a true bar's double
+    adds little, so this is high when the reading's bar is too short.
 ``beat``
     margin of the beat at beat length, against its own subdivisions, times
     ``(1 + share of subdivision positions played) / 2`` (a subdivision level
@@ -71,7 +75,6 @@ ADDITIVE = ((3, 2), (2, 3), (2, 2, 3), (2, 3, 2), (3, 2, 2))
 class TreeSettings:
     """How readings are measured, and the model that scores them."""
 
-    w_half_bar: float = 0.6  # a four-beat bar adds this share of its half bar's evidence
     beat_reference_s: float = 0.6  # tempo features count octaves from here
     min_beat_s: float = 0.2
     max_beat_s: float = 2.0
@@ -162,6 +165,10 @@ class _Scanner:
     engine: str
     pulse_s: float
     cache: dict = field(default_factory=dict)
+
+    @property
+    def span(self) -> float:
+        return float(self.positions.max() - self.positions.min())
 
     @property
     def width_pulses(self) -> float:
@@ -308,9 +315,16 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
         bar_term = _bar_evidence(scan, cyc, x0, L, offsets, float(sub), tol, otol) if n > 1 else 0.0
         # Nesting: a bar of four beats also shows its half bar.
+        half_term = 0.0
         if grouping is None and n == 4:
             half = bar / 2
-            bar_term += s.w_half_bar * _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], float(sub), 2 * tol, otol)
+            half_term = _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], float(sub), 2 * tol, otol)
+        # A true bar explains more than its half, and its double adds little:
+        # the evidence for a downbeat every other bar.
+        double_term = 0.0
+        if 2 * L <= scan.span / 1.5:
+            double_term = _bar_evidence(scan, scan(2 * bar), x0, 2 * L, np.array([0.0, L]), float(beat) if grouping is None else L,
+                                        tol / 2, otol)
         if grouping is None:
             # The beat against its own subdivisions, at beat length.
             bc = scan(beat)
@@ -343,7 +357,8 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         family = _family(n, division, grouping)
         log_beat = float(np.log2(beat_s / s.beat_reference_s))
         features = {
-            "bar": float(bar_term), "beat": float(beat_term), "division": float(division_term),
+            "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
+            "beat": float(beat_term), "division": float(division_term),
             "unexplained": float(unexplained), "support": float(support),
             "log_beat": log_beat, "log_beat_sq": log_beat ** 2,
             "compound": float(family == "compound"), "single": float(family == "single"),
@@ -352,6 +367,11 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             "beats4": float(grouping is None and n == 4), "beats5": float(grouping is None and n == 5),
             # A compound beat must show its division in three.
             "compound_unheard": (1.0 - float(np.clip(division_term / 0.1, 0.0, 1.0))) if division == 3 else 0.0,
+            # Drum kits mark metre differently from melodies: the evidence
+            # terms get their own weights there.
+            "drums_bar": float(bar_term) * drums, "drums_half_bar": float(half_term) * drums,
+            "drums_double_bar": float(double_term) * drums, "drums_beat": float(beat_term) * drums,
+            "drums_division": float(division_term) * drums,
             "drums_beats2": float(drums and family == "simple" and n == 2),
             "drums_beats4": float(drums and family == "simple" and n == 4),
             "drums_compound": float(drums and family == "compound"),
