@@ -150,11 +150,11 @@ def _run_one(perf: Performance) -> list[dict]:
 # ---- sets --------------------------------------------------------------------
 
 def build_performances(n_tunes: int | None, n_grooves: int, progress: bool) -> tuple[list[Performance], dict]:
-    from essen import load_corpus, split_of
+    from essen import format_report, load_corpus_with_report, split_of
     from grooves import make_grooves
     from render import render
 
-    tunes = load_corpus(progress=progress)
+    tunes, report = load_corpus_with_report(progress=progress)
     eval_tunes = [t for t in tunes if split_of(t) == "eval"]
     rng = np.random.default_rng(SAMPLE_SEED)
     if n_tunes is not None and n_tunes < len(eval_tunes):
@@ -166,7 +166,7 @@ def build_performances(n_tunes: int | None, n_grooves: int, progress: bool) -> t
         perfs.append(render(tune, "played", seed=10_000 + i))
         perfs.append(render(tune, "played-flat", seed=10_000 + i))
     perfs += make_grooves(n_grooves, seed=SAMPLE_SEED)
-    info = {"eval tunes": len(eval_tunes), "grooves": n_grooves, "corpus tunes": len(tunes)}
+    info = {"eval tunes": len(eval_tunes), "grooves": n_grooves, "corpus tunes": len(tunes), "corpus report": format_report(report)}
     return perfs, info
 
 
@@ -256,7 +256,7 @@ def main() -> int:
     t0 = time.time()
     n_tunes, n_grooves = (None, 1000) if args.full else (args.tunes, args.grooves)
     perfs, info = build_performances(n_tunes, n_grooves, progress)
-    print(f"{len(perfs)} performances ({info})", file=sys.stderr)
+    print(f"{len(perfs)} performances ({info['eval tunes']} tunes, {info['grooves']} grooves)", file=sys.stderr)
     rows = run(perfs, args.jobs, progress)
     md_tables, figures = tables(rows)
     from speed import speed_table
@@ -295,6 +295,14 @@ by a model fitted on the persistence features alone (`bench/models/persistence_o
 ### Confusion, metertop, drum grooves
 
 {confusion_md(rows, 'groove', 'metertop')}
+## The corpus
+
+Tunes left out of every figure are counted here (free metre, other metres, irregular bars, ...):
+
+```
+{info['corpus report']}
+```
+
 ## Speed
 
 {speed_md}

@@ -4,6 +4,7 @@ Usage::
 
     python bench/train.py            # fit, write metertop/data/reading_model.json
     python bench/train.py --dry-run  # fit and print, write nothing
+    python bench/train.py --model-out bench/models/candidate.json   # fit without shipping
 
 Data: training-file Essen tunes (bench/split.md), rendered deadpan and
 played (bench/render.py), and drum grooves from a seed the evaluation never
@@ -208,6 +209,8 @@ def main() -> int:
     parser.add_argument("--grooves", type=int, default=400)
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--dry-run", action="store_true")
+    parser.add_argument("--model-out", type=Path, default=MODEL_PATH,
+                        help="where to write the fitted model (default: the shipped metertop/data/reading_model.json)")
     args = parser.parse_args()
     progress = sys.stderr.isatty()
     data, info = collect_cached(args.tunes, args.grooves, args.jobs, progress)
@@ -228,10 +231,10 @@ def main() -> int:
     print(model.to_json())
     print(ablation.to_json())
     if not args.dry_run:
-        MODEL_PATH.write_text(model.to_json() + "\n")
+        args.model_out.write_text(model.to_json() + "\n")
         ABLATION_PATH.parent.mkdir(parents=True, exist_ok=True)
         ABLATION_PATH.write_text(ablation.to_json() + "\n")
-        print(f"wrote {MODEL_PATH} and {ABLATION_PATH}", file=sys.stderr)
+        print(f"wrote {args.model_out} and {ABLATION_PATH}", file=sys.stderr)
     return 0
 
 
