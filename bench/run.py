@@ -51,9 +51,22 @@ def _reading_dict(reading) -> dict:
             "beat_division": reading.beat_division, "grouping": reading.grouping, "bar_s": reading.bar_s}
 
 
+MODEL_OVERRIDE: Path | None = None  # --model: score metertop's readings with another model file
+
+
+def _model_settings(path: Path):
+    from metertop.model import ReadingModel
+    from metertop.pipeline import Settings
+    from metertop.tree import TreeSettings
+
+    return Settings(tree=TreeSettings(model=ReadingModel.from_dict(json.loads(Path(path).read_text()))))
+
+
 def predict_metertop(perf: Performance, settings=None) -> dict:
     import metertop
 
+    if settings is None and MODEL_OVERRIDE is not None:
+        settings = _model_settings(MODEL_OVERRIDE)
     notes = perf.note_table()
     start = time.perf_counter()
     r = metertop.analyse(notes) if settings is None else metertop.analyse(notes, settings=settings)
@@ -91,12 +104,7 @@ def predict_baseline(perf: Performance) -> dict:
 
 def predict_persistence_only(perf: Performance) -> dict:
     """metertop with the model fitted on the persistence features alone (the ablation)."""
-    from metertop.model import ReadingModel
-    from metertop.pipeline import Settings
-    from metertop.tree import TreeSettings
-
-    model = ReadingModel.from_dict(json.loads(ABLATION_MODEL.read_text()))
-    return predict_metertop(perf, Settings(tree=TreeSettings(model=model)))
+    return predict_metertop(perf, _model_settings(ABLATION_MODEL))
 
 
 PREDICT = {"metertop": predict_metertop, "baseline": predict_baseline, "persistence only": predict_persistence_only}
@@ -251,8 +259,12 @@ def main() -> int:
     parser.add_argument("--jobs", type=int, default=os.cpu_count() or 1)
     parser.add_argument("--out", type=Path, default=ROOT / "docs" / "benchmarks.md")
     parser.add_argument("--quiet", action="store_true")
+    parser.add_argument("--model", type=Path, default=None,
+                        help="score metertop's readings with this model JSON instead of the shipped one (to compare fits)")
     args = parser.parse_args()
     progress = not args.quiet and sys.stderr.isatty()
+    global MODEL_OVERRIDE
+    MODEL_OVERRIDE = args.model
     t0 = time.time()
     n_tunes, n_grooves = (None, 1000) if args.full else (args.tunes, args.grooves)
     perfs, info = build_performances(n_tunes, n_grooves, progress)
@@ -269,7 +281,8 @@ def main() -> int:
     errors = [r for r in rows if r.get("error")]
     from metertop.model import default_model
 
-    model_note = f"reading model: {default_model().fitted_on}"
+    model_note = (f"reading model: {json.loads(args.model.read_text())['fitted_on']} ({args.model})" if args.model
+                  else f"reading model: {default_model().fitted_on}")
     anchor = figures.get("deadpan folk", {}).get("baseline", {}).get("duple/triple family correct", float("nan"))
     text = f"""# Benchmarks
 
