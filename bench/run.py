@@ -296,7 +296,7 @@ The baseline is autocorrelation metre induction with accent weighting (Brown 199
 `bench/baseline.py`. Its duple/triple figure on deadpan folk is {_fmt(anchor)}; the paper reports 96% on about 13,000 folk
 melodies (Toiviainen & Eerola, JASA 119 (2006) 1164-1170), over its own classes, so the comparison is close, not exact.
 
-Columns: `metertop` is the shipped tool ({model_note}); `persistence only` is the ablation, the same pipeline scored
+Columns: `metertop` is metertop scored by the {'given' if args.model else 'shipped'} {model_note}; `persistence only` is the ablation, the same pipeline scored
 by a model fitted on the persistence features alone (`bench/models/persistence_only.json`), run on deadpan folk and the grooves.
 
 ## Accuracy
