@@ -59,6 +59,7 @@ def _candidate_rows(perf: Performance):
     from metertop import analyse_detailed
     from metertop.errors import MetertopError
     from metertop.model import FEATURES
+    from metertop.pipeline import _grid_times
 
     try:
         a = analyse_detailed(perf.note_table())
@@ -66,16 +67,14 @@ def _candidate_rows(perf: Performance):
         return None
     pulse_s = a.pulse.median_period_s
     t0, t1 = float(a.times_s[0]), float(a.times_s[-1])
-    lo, hi = a.pulse.warp([t0 - 0.05, t1 + 0.05])
     X, right = [], []
     for c in a.tree.candidates:
         bar = float(c.bar)
         reading = {"beats_per_bar": c.beats_per_bar, "beat_division": c.division, "grouping": c.grouping, "bar_s": bar * pulse_s}
         ok = reading_matches(reading, perf)
         if ok:
-            k = np.arange(np.floor((lo - c.downbeat_pulses) / bar), np.ceil((hi - c.downbeat_pulses) / bar) + 1)
-            downbeats = a.pulse.unwarp(c.downbeat_pulses + k * bar)
-            downbeats = downbeats[(downbeats >= t0 - 0.05) & (downbeats <= t1 + 0.05)]
+            # The candidate's downbeats, laid out as metertop lays out its answer's.
+            downbeats = _grid_times(a.pulse, c.downbeat_pulses, np.array([0.0]), bar, t0, t1, 0.05)
             ok = len(downbeats) > 0 and mir_eval.onset.f_measure(np.asarray(perf.downbeats_s), downbeats, window=0.07)[0] >= 0.5
         X.append([c.terms.get(f, 0.0) for f in FEATURES])
         right.append(bool(ok))

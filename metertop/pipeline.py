@@ -129,6 +129,12 @@ def _grid_times(pulse: PulseTrack, start_pulses: float, step_pulses: np.ndarray,
     return np.sort(times[(times >= t0 - tol_s) & (times <= t1 + tol_s)])
 
 
+def _first_at(pulse: PulseTrack, start_pulses: float, length_pulses: float, from_pulses: float) -> float:
+    """Time (s) of the first point of the grid ``start + k * length`` at or after ``from_pulses``."""
+    k = np.ceil((from_pulses - start_pulses) / length_pulses)
+    return float(pulse.unwarp([start_pulses + k * length_pulses])[0])
+
+
 def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings) -> MetreResult:
     best = tree.best
     t0, t1 = float(t[0]), float(t[-1])
@@ -139,16 +145,16 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
     pulse_s = pulse.median_period_s
     bar_s = float(np.median(np.diff(downbeats))) if len(downbeats) > 1 else bar_p * pulse_s
     beat_s = float(np.median(np.diff(beats))) if len(beats) > 1 else float(best.beat) * pulse_s
+    from_pulses = float(pulse.warp([t0 - tol])[0])
     levels = []
     for name in ("subdivision", "beat", "bar", "hypermeasure"):
         if name not in tree.graph:
             continue
         node = tree.graph.nodes[name]
         length = float(node["length"])
-        start = node.get("start", best.downbeat_pulses)
-        first = pulse.unwarp([start + np.ceil((pulse.warp([t0 - tol])[0] - start) / length) * length])[0]
-        levels.append(Level(name, length * pulse_s, float(first), node["score"], node["confidence"]))
-    alternatives = _alternatives(tree, pulse, t0, tol, settings.n_alternatives)
+        first = _first_at(pulse, node.get("start", best.downbeat_pulses), length, from_pulses)
+        levels.append(Level(name, length * pulse_s, first, node["score"], node["confidence"]))
+    alternatives = _alternatives(tree, pulse, from_pulses, settings.n_alternatives)
     notated = f"{notes.time_signatures[0]}" if notes.time_signatures else None
     return make_result(
         source=notes.source,
@@ -172,14 +178,13 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
     )
 
 
-def _alternatives(tree: MetricTree, pulse: PulseTrack, t0: float, tol: float, limit: int) -> list[Reading]:
-    """Distinct readings (notation and downbeat), best first."""
+def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[Reading]:
+    """Distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
     out, seen = [], set()
     for cand, prob in zip(tree.candidates, tree.probabilities):
         bar = float(cand.bar)
-        start = pulse.warp([t0 - tol])[0]
-        first_down = cand.downbeat_pulses + np.ceil((start - cand.downbeat_pulses) / bar) * bar
-        key = (cand.time_signature, cand.grouping, round(float(pulse.unwarp([first_down])[0]), 2))
+        phase_s = _first_at(pulse, cand.downbeat_pulses, bar, from_pulses)
+        key = (cand.time_signature, cand.grouping, round(phase_s, 2))
         if key in seen:
             continue
         seen.add(key)
@@ -190,7 +195,7 @@ def _alternatives(tree: MetricTree, pulse: PulseTrack, t0: float, tol: float, li
             beat_division=cand.division if cand.grouping is None else None,
             grouping=list(cand.grouping) if cand.grouping else None,
             bar_s=bar * pulse.median_period_s,
-            phase_s=float(pulse.unwarp([first_down])[0]),
+            phase_s=phase_s,
             score=cand.score,
             probability=float(prob),
         ))

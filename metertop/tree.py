@@ -110,9 +110,19 @@ class Candidate:
 
     def beat_offsets(self) -> np.ndarray:
         """Beat positions within the bar, in pulses from the downbeat."""
-        if self.grouping is not None:
-            return np.concatenate([[0], np.cumsum(self.grouping)[:-1]]).astype(float) * float(self.tatum)
-        return np.arange(self.beats_per_bar) * float(self.beat)
+        return _beat_starts(self.beats_per_bar, self.beat, self.grouping, self.tatum)
+
+
+def _group_starts(grouping) -> np.ndarray:
+    """Index of the first tatum of each group of an additive bar."""
+    return np.concatenate([[0], np.cumsum(grouping)[:-1]])
+
+
+def _beat_starts(n: int, beat: Fraction, grouping, tatum: Fraction) -> np.ndarray:
+    """Beat positions within the bar, in pulses from the downbeat."""
+    if grouping is not None:
+        return _group_starts(grouping).astype(float) * float(tatum)
+    return np.arange(n) * float(beat)
 
 
 def time_signature_of(beats_per_bar: int, division: int | None, grouping) -> str:
@@ -202,7 +212,7 @@ class _Scanner:
 
     def __call__(self, length: Fraction) -> WrappedCycle:
         if length not in self.cache:
-            span = float(self.positions.max() - self.positions.min()) + float(length)
+            span = self.span + float(length)
             width = self.width_pulses
             self.cache[length] = wrap_cycle(self.positions, self.weights, float(length), bins_per_unit=int(np.clip(np.ceil(2.5 / width), 12, 48)),
                                             width_units=width, span=span, engine=self.engine)
@@ -299,6 +309,8 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
     seen, out = set(), []
     rel = cyc.relative_persistence
     # Downbeat candidates: the most persistent peaks, snapped to the grid.
+    offsets = _beat_starts(n, beat, grouping, tatum)
+    otol = float(sub) * 0.25
     for ph, r in zip(cyc.peak_phases[: s.phase_candidates], rel[: s.phase_candidates]):
         if r < 0.2 and out:
             break
@@ -310,8 +322,6 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         # folds every onset onto one phase and has a perfect margin, but its
         # other beats are empty. Margins are weighted by the share of the
         # compared positions that carry an onset.
-        offsets = np.concatenate([[0], np.cumsum(grouping)[:-1]]) * float(tatum) if grouping else np.arange(n) * float(beat)
-        otol = float(sub) * 0.25
         support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
         bar_term = _bar_evidence(scan, cyc, x0, L, offsets, float(sub), tol, otol) if n > 1 else 0.0
         # Nesting: a bar of four beats also shows its half bar.
@@ -342,7 +352,7 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         else:
             # Additive bars, at bar length: group starts against the other
             # tatums (the beat level).
-            starts = np.concatenate([[0], np.cumsum(grouping)[:-1]])
+            starts = _group_starts(grouping)
             inner = np.setdiff1d(np.arange(sum(grouping)), starts)
             t = float(tatum)
             pb = cyc.persistence_at(((x0 + starts[1:] * t) % L) / L, tol).mean()
@@ -455,7 +465,7 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     x = np.asarray(positions, dtype=np.float64)
     scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s)
     lattice = cycle_lattice()
-    span_pulses = float(x.max() - x.min())
+    span_pulses = scan.span
     cands: list[Candidate] = []
     for lo, hi, data in lattice.edges(data=True):
         bar_s = float(hi) * pulse_s
@@ -498,7 +508,7 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     bar by bar (as for the bar itself). The multiple with the most evidence
     wins if it reaches ``hyper_min_evidence``.
     """
-    span = float(scan.positions.max() - scan.positions.min())
+    span = scan.span
     bar = float(best.bar)
     tol = min(0.25 * float(best.beat) / bar, 0.12)
     otol = 0.25 * float(best.tatum if best.grouping else best.beat / best.division)
