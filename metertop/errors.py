@@ -7,7 +7,7 @@ line turns it into one line on stderr and exit code 2. Any other exception is
 a bug.
 """
 
-__all__ = ["MetertopError", "InputError"]
+__all__ = ["MetertopError", "InputError", "OutputError"]
 
 
 class MetertopError(ValueError):
@@ -16,3 +16,7 @@ class MetertopError(ValueError):
 
 class InputError(MetertopError):
     """The input cannot be analysed: missing, empty, corrupt or too short."""
+
+
+class OutputError(InputError):
+    """An output cannot be written: it exists, is the input, or the disk refused it."""
