@@ -46,13 +46,20 @@ class Settings:
 
 @dataclass(frozen=True)
 class Analysis:
-    """The result together with the intermediate stages (for plots and checks)."""
+    """The result together with the intermediate stages (for plots and checks).
+
+    ``times_s`` and ``weights`` are the merged events and their accents;
+    ``notes`` are the notes they came from and ``settings`` the settings
+    used (the reading model among them).
+    """
 
     result: MetreResult
     times_s: np.ndarray
     weights: np.ndarray
     pulse: PulseTrack
     tree: MetricTree
+    notes: NoteTable | None = None
+    settings: Settings | None = None
 
 
 def _as_notes(source, tracks) -> NoteTable:
@@ -115,7 +122,7 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     pulse_s = pulse.median_period_s
     tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums)
     result = _assemble(notes, t, pulse, tree, settings)
-    return Analysis(result, t, w, pulse, tree)
+    return Analysis(result, t, w, pulse, tree, notes, settings)
 
 
 def _grid_times(pulse: PulseTrack, start_pulses: float, step_pulses: np.ndarray, bar_pulses: float, t0: float, t1: float, tol_s: float) -> np.ndarray:
