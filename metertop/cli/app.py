@@ -24,6 +24,18 @@ def _fail(message: str, code: int = 2) -> None:
     raise typer.Exit(code)
 
 
+def _settings(merge_ms: float, engine: str):
+    """Pipeline settings from the shared command-line options, or a one-line error."""
+    from ..persistence import ENGINES
+    from ..pipeline import Settings
+
+    if engine not in ENGINES:
+        _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
+    if not merge_ms >= 0 or merge_ms > 1000:
+        _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
+    return Settings(merge_window_s=merge_ms / 1000.0, engine=engine)
+
+
 def _version(value: bool) -> None:
     if value:
         from .._version import __version__
@@ -46,22 +58,28 @@ def analyse_cmd(
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
     engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure to this file (.png, .svg or .pdf); one FILE only."),
+    force: bool = typer.Option(False, "--force", help="Replace an existing output file."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
     from ..export import to_json_line
-    from ..persistence import ENGINES
-    from ..pipeline import Settings, analyse
+    from ..pipeline import analyse
     from ..report import summary
 
-    if engine not in ENGINES:
-        _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
-    if not merge_ms >= 0 or merge_ms > 1000:
-        _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
-    settings = Settings(merge_window_s=merge_ms / 1000.0, engine=engine)
+    settings = _settings(merge_ms, engine)
+    if plot is not None:
+        from .plot import draw_and_save, prepare_plot
+
+        if len(files) != 1:
+            _fail(f"--plot draws one file, got {len(files)}; use 'metertop plot FILE -o OUT' for each")
+        prepare_plot(plot, files[0], force)
     failed = 0
     for i, path in enumerate(files):
         try:
-            result = analyse(path, tracks=list(track) if track else None, settings=settings)
+            if plot is not None:
+                result = draw_and_save(path, plot, force=force, tracks=track, settings=settings).result
+            else:
+                result = analyse(path, tracks=list(track) if track else None, settings=settings)
         except MetertopError as exc:
             message = str(exc)
             typer.echo(f"metertop: error: {message if str(path) in message else f'{path}: {message}'}", err=True)
@@ -73,6 +91,8 @@ def analyse_cmd(
             if i:
                 typer.echo("")
             typer.echo(summary(result, name=str(path) if len(files) > 1 else None))
+        if plot is not None:
+            typer.echo(f"figure written to {plot}", err=json_out)
     if failed:
         raise typer.Exit(2)
 
@@ -88,3 +108,6 @@ def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
         _fail(str(exc))
     for index, name, is_drum, n_notes in rows:
         typer.echo(f"{index:3d}  {'drums ' if is_drum else 'pitched'}  {n_notes:6d} notes  {name}")
+
+
+from . import plot as _plot  # noqa: E402,F401
