@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed install clean-venv check-boost
+.PHONY: demo test bench bench-full bench-speed install clean-venv check-boost figures
 
 install: $(STAMP)
 
@@ -23,6 +23,10 @@ check-boost:
 
 demo: $(STAMP)
 	$(BIN)/metertop analyse demo_rhythms/*.mid demo_rhythms/*.csv
+
+# The README's demo figure (docs/), drawn again from the demo file.
+figures: $(STAMP)
+	$(BIN)/metertop plot demo_rhythms/tidewater_lighthouse_steps_7-8.mid -o docs/figure_lighthouse_steps_7-8.png --force
 
 test: $(STAMP)
 	$(BIN)/python -m pytest
