@@ -35,8 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
-from .persistence import circle_diagram_unionfind
-from .scan import WrappedCycle, circular_bumps
+from .scan import circular_bumps, refined_phases
 
 __all__ = ["PulseTrack", "TempoSettings", "track_pulse", "pulse_salience"]
 
@@ -171,14 +170,19 @@ def _viterbi(log_emit: np.ndarray, log_periods: np.ndarray, sd: float) -> np.nda
 
 
 def _anchor_phase(t, w, c, half, period) -> float | None:
-    """Phase (cycle fraction, relative to ``c``) of the most persistent position."""
+    """Phase (cycle fraction, relative to ``c``) of the most persistent position.
+
+    The most persistent class of a circle function's superlevel sets is the
+    essential one, born at the global maximum, so its peak is the argmax: no
+    diagram is needed (tests check this against the union-find diagram).
+    """
     lo, hi = np.searchsorted(t, [c - half, c + half])
     if hi - lo < 2:
         return None
     x = t[lo:hi] - c
     g = (0.5 + 0.5 * np.cos(np.pi * x / half)) * w[lo:hi]
     dens = circular_bumps(x / period, g, 48, max(0.03 / period, 0.02))
-    return float(WrappedCycle(period, dens, circle_diagram_unionfind(dens)).peak_phases[0])
+    return float(refined_phases(dens, [int(np.argmax(dens))])[0])
 
 
 def track_pulse(times_s, weights, settings: TempoSettings = TempoSettings(), period_hint_s: float | None = None) -> PulseTrack:

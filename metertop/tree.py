@@ -175,10 +175,11 @@ class _Scanner:
     engine: str
     pulse_s: float
     cache: dict = field(default_factory=dict)
+    grids: dict = field(default_factory=dict)
 
-    @property
-    def span(self) -> float:
-        return float(self.positions.max() - self.positions.min())
+    def __post_init__(self) -> None:
+        self.lo, self.hi = float(self.positions.min()), float(self.positions.max())
+        self.span = self.hi - self.lo
 
     @property
     def width_pulses(self) -> float:
@@ -186,14 +187,25 @@ class _Scanner:
 
     def _grid(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         """Grid points ``start + offsets + k * period`` within the onsets' span, one row per cycle."""
-        lo, hi = self.positions.min(), self.positions.max()
+        lo, hi = self.lo, self.hi
         k = np.arange(np.floor((lo - start) / period), np.ceil((hi - start) / period) + 1)
         pts = start + k[:, None] * period + np.asarray(offsets, dtype=float)[None, :]
         inside = ((pts >= lo - tol) & (pts <= hi + tol)).all(axis=1)
         return pts[inside]
 
     def grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
-        """Weight of the onset nearest each grid point (0 if none within ``tol``); shape (cycles, len(offsets))."""
+        """Weight of the onset nearest each grid point (0 if none within ``tol``); shape (cycles, len(offsets)).
+
+        Readings share grids (a 4/4 bar's half is a 2/4 bar), so results are
+        cached by their arguments; callers must not modify the array.
+        """
+        offsets = np.asarray(offsets, dtype=float)
+        key = (round(start, 9), round(period, 9), offsets.round(9).tobytes(), round(tol, 9))
+        if key not in self.grids:
+            self.grids[key] = self._grid_weights(start, period, offsets, tol)
+        return self.grids[key]
+
+    def _grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         pts = self._grid(start, period, offsets, tol)
         x, w = self.positions, self.weights
         if pts.size == 0:
