@@ -90,6 +90,19 @@ class PulseTrack:
         """Seconds of each pulse-time value (inverse of :meth:`warp`)."""
         return _interp_extrap(np.asarray(theta, dtype=np.float64), self.theta, self.grid_s)
 
+    def salience_profile(self) -> tuple[np.ndarray, np.ndarray]:
+        """Candidate periods and their salience over the piece, relative to the best period's.
+
+        The median over windows of each period's salience, divided by the
+        median over windows of the largest salience: 1 for a period that is
+        as salient as the best one throughout, near 0 for one that is never
+        periodic. The salience is essential persistence times the share
+        near the top peak (see :func:`pulse_salience`).
+        """
+        top = float(np.median(self.salience.max(axis=1))) if self.salience.size else 0.0
+        profile = np.median(self.salience, axis=0) / top if top > 0 else np.zeros(len(self.candidates_s))
+        return self.candidates_s, profile
+
     @property
     def median_period_s(self) -> float:
         return float(np.median(np.diff(self.times_s))) if len(self.times_s) > 1 else float(np.median(self.periods_s))

@@ -174,6 +174,7 @@ class _Scanner:
     settings: TreeSettings
     engine: str
     pulse_s: float
+    period_salience: tuple[np.ndarray, np.ndarray] | None = None
     cache: dict = field(default_factory=dict)
     grids: dict = field(default_factory=dict)
 
@@ -221,6 +222,16 @@ class _Scanner:
         """Share of the grid points ``start + offsets + k * period`` that have an onset within ``tol``."""
         gw = self.grid_weights(start, period, offsets, tol)
         return float(np.mean(gw > 0)) if gw.size else 0.0
+
+    def salience_at(self, period_s: float) -> float:
+        """The pulse scan's relative salience at ``period_s`` (log-period interpolation; 0 outside the scanned range)."""
+        if self.period_salience is None:
+            return 0.0
+        periods, profile = self.period_salience
+        lp = np.log(period_s)
+        if not np.log(periods[0]) - 1e-9 <= lp <= np.log(periods[-1]) + 1e-9:
+            return 0.0
+        return float(np.interp(lp, np.log(periods), profile))
 
     def __call__(self, length: Fraction) -> WrappedCycle:
         if length not in self.cache:
@@ -382,6 +393,7 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
             "beat": float(beat_term), "division": float(division_term),
             "unexplained": float(unexplained), "support": float(support),
+            "beat_salience": scan.salience_at(beat_s),
             "log_beat": log_beat, "log_beat_sq": log_beat ** 2,
             "compound": float(family == "compound"), "single": float(family == "single"),
             "irregular": float(family == "irregular"),
@@ -458,7 +470,7 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
 
 
 def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
-               drums: bool = False) -> MetricTree:
+               drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -472,10 +484,14 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         Persistence engine.
     drums : bool
         The events come from a drum kit (General MIDI drums).
+    period_salience : (periods_s, salience), optional
+        The pulse scan's salience profile over candidate periods in seconds
+        (:meth:`metertop.tempo.PulseTrack.salience_profile`), for the
+        ``beat_salience`` feature; without it the feature is 0.
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
-    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s)
+    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
     lattice = cycle_lattice()
     span_pulses = scan.span
     cands: list[Candidate] = []
