@@ -9,7 +9,9 @@ a conditional logit model.
 
 - Persistence evidence (read off merge trees of wrapped densities):
   ``bar``, ``half_bar``, ``double_bar``, ``beat``, ``division``,
-  ``unexplained`` (see :mod:`metertop.tree`).
+  ``unexplained`` (see :mod:`metertop.tree`), and ``beat_salience``, the
+  pulse scan's essential-class salience at the reading's beat period,
+  relative to the best period's (:meth:`metertop.tempo.PulseTrack.salience_profile`).
 - Occupancy: ``support``, the log share of downbeats that carry an onset.
 - Tempo: ``log_beat`` and ``log_beat_sq``, the beat period in octaves from
   0.6 s and its square.
@@ -36,12 +38,13 @@ import numpy as np
 
 __all__ = ["FEATURES", "PERSISTENCE_FEATURES", "ReadingModel", "default_model", "HAND_SET"]
 
-PERSISTENCE_FEATURES = ("bar", "half_bar", "double_bar", "beat", "division", "unexplained")
+# The persistence evidence, and the same evidence again for drum kits.
+PERSISTENCE_FEATURES = ("bar", "half_bar", "double_bar", "beat", "division", "unexplained", "beat_salience",
+                        "drums_bar", "drums_half_bar", "drums_double_bar", "drums_beat", "drums_division")
 FEATURES = PERSISTENCE_FEATURES + (
     "support", "log_beat", "log_beat_sq",
     "compound", "single", "irregular", "beats2", "beats3", "beats4", "beats5",
     "compound_unheard", "drums_beats2", "drums_beats4", "drums_compound",
-    "drums_bar", "drums_half_bar", "drums_double_bar", "drums_beat", "drums_division",
 )
 
 # The weights chosen by hand before any fit (see docs/method.md).

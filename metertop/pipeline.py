@@ -120,7 +120,8 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     pulse = track_pulse(t, w, settings.tempo)
     tau = pulse.warp(t)
     pulse_s = pulse.median_period_s
-    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums)
+    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums,
+                      period_salience=pulse.salience_profile())
     result = _assemble(notes, t, pulse, tree, settings)
     return Analysis(result, t, w, pulse, tree, notes, settings)
 

@@ -23,14 +23,32 @@ repeat a shorter cycle (two equal downbeats per cycle).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
 from .persistence import CircleDiagram, circle_diagram
 
-__all__ = ["WrappedCycle", "wrapped_density", "circular_bumps", "wrap_cycle", "scan_lengths"]
+__all__ = ["WrappedCycle", "wrapped_density", "circular_bumps", "refined_phases", "wrap_cycle", "scan_lengths"]
 
 _OVERSAMPLE = 4
+
+
+_KERNELS: dict = {}
+
+
+def _kernel_spectrum(fine: int, widths: np.ndarray) -> np.ndarray:
+    """FFT of the sampled circular Gaussian bumps, one row per width (cached: windows reuse them)."""
+    key = (fine, widths.tobytes())
+    spectrum = _KERNELS.get(key)
+    if spectrum is None:
+        d = np.arange(fine) / fine
+        d = np.minimum(d, 1.0 - d)
+        spectrum = np.fft.rfft(np.exp(-0.5 * (d[None, :] / widths[:, None]) ** 2), axis=1)
+        if len(_KERNELS) > 256:
+            _KERNELS.clear()
+        _KERNELS[key] = spectrum
+    return spectrum
 
 
 def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
@@ -72,14 +90,11 @@ def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
     lo = np.floor(pos).astype(np.int64)
     frac = pos - lo
     rows = np.broadcast_to(np.arange(j)[None, :], (n, j))
-    hist = np.zeros(j * fine)
-    np.add.at(hist, (rows * fine + lo % fine).ravel(), (w[:, None] * (1 - frac)).ravel())
-    np.add.at(hist, (rows * fine + (lo + 1) % fine).ravel(), (w[:, None] * frac).ravel())
-    hist = hist.reshape(j, fine)
-    d = np.arange(fine) / fine
-    d = np.minimum(d, 1.0 - d)
-    kernel = np.exp(-0.5 * (d[None, :] / widths[:, None]) ** 2)
-    out = np.fft.irfft(np.fft.rfft(hist, axis=1) * np.fft.rfft(kernel, axis=1), n=fine, axis=1)[:, ::_OVERSAMPLE]
+    base = rows * fine
+    index = np.concatenate(((base + lo % fine).ravel(), (base + (lo + 1) % fine).ravel()))
+    mass = np.concatenate(((w[:, None] * (1 - frac)).ravel(), (w[:, None] * frac).ravel()))
+    hist = np.bincount(index, weights=mass, minlength=j * fine).reshape(j, fine)
+    out = np.fft.irfft(np.fft.rfft(hist, axis=1) * _kernel_spectrum(fine, widths), n=fine, axis=1)[:, ::_OVERSAMPLE]
     # Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
     out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
     return out[0] if one else out
@@ -124,6 +139,22 @@ def wrapped_density(positions, weights, length: float, n_bins: int, width: float
     return circular_bumps(x / length, w, n_bins, width) / n_cycles
 
 
+def refined_phases(density, bins) -> np.ndarray:
+    """Phase in [0, 1) of each given bin of a circle density, refined by a parabola through it and its neighbours.
+
+    >>> round(float(refined_phases(np.array([0.0, 1.0, 1.0, 0.0]), np.array([1]))[0]), 3)
+    0.375
+    """
+    f = np.asarray(density, dtype=np.float64)
+    m = len(f)
+    k = np.asarray(bins, dtype=np.int64)
+    left, mid, right = f[(k - 1) % m], f[k], f[(k + 1) % m]
+    denom = left - 2 * mid + right
+    with np.errstate(divide="ignore", invalid="ignore"):
+        shift = np.where(denom < 0, 0.5 * (left - right) / denom, 0.0)
+    return np.mod((k + np.clip(shift, -0.5, 0.5)) / m, 1.0)
+
+
 @dataclass(frozen=True)
 class WrappedCycle:
     """One cycle length of the scan, with its persistence summary.
@@ -146,18 +177,12 @@ class WrappedCycle:
     def n_bins(self) -> int:
         return len(self.density)
 
-    @property
+    @cached_property
     def peak_phases(self) -> np.ndarray:
         """Phase in [0, 1) of each peak, refined by a parabola through its bin."""
-        f, m = self.density, self.n_bins
-        k = self.diagram.peaks
-        left, mid, right = f[(k - 1) % m], f[k], f[(k + 1) % m]
-        denom = left - 2 * mid + right
-        with np.errstate(divide="ignore", invalid="ignore"):
-            shift = np.where(denom < 0, 0.5 * (left - right) / denom, 0.0)
-        return np.mod((k + np.clip(shift, -0.5, 0.5)) / m, 1.0)
+        return refined_phases(self.density, self.diagram.peaks)
 
-    @property
+    @cached_property
     def relative_persistence(self) -> np.ndarray:
         """Persistences divided by the essential one (which is then 1)."""
         pers = self.diagram.persistence
@@ -179,15 +204,12 @@ class WrappedCycle:
 
     def persistence_at(self, phases, tolerance: float) -> np.ndarray:
         """Relative persistence of the peak nearest each phase, 0 if none within ``tolerance`` (cycle fraction)."""
-        pp = self.peak_phases
+        ph = np.atleast_1d(np.asarray(phases, dtype=np.float64))
         rel = self.relative_persistence
-        out = np.zeros(len(np.atleast_1d(phases)))
-        for i, ph in enumerate(np.atleast_1d(phases)):
-            d = np.abs(((pp - ph) + 0.5) % 1.0 - 0.5)
-            near = d <= tolerance
-            if np.any(near):
-                out[i] = rel[near].max()
-        return out
+        if len(rel) == 0:
+            return np.zeros(len(ph))
+        d = np.abs(((self.peak_phases[None, :] - ph[:, None]) + 0.5) % 1.0 - 0.5)
+        return np.where(d <= tolerance, rel[None, :], 0.0).max(axis=1)
 
 
 def wrap_cycle(positions, weights, length: float, bins_per_unit: int = 12, width_units: float = 0.07,

@@ -35,8 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
-from .persistence import circle_diagram_unionfind
-from .scan import WrappedCycle, circular_bumps
+from .scan import circular_bumps, refined_phases
 
 __all__ = ["PulseTrack", "TempoSettings", "track_pulse", "pulse_salience"]
 
@@ -90,6 +89,19 @@ class PulseTrack:
     def unwarp(self, theta) -> np.ndarray:
         """Seconds of each pulse-time value (inverse of :meth:`warp`)."""
         return _interp_extrap(np.asarray(theta, dtype=np.float64), self.theta, self.grid_s)
+
+    def salience_profile(self) -> tuple[np.ndarray, np.ndarray]:
+        """Candidate periods and their salience over the piece, relative to the best period's.
+
+        The median over windows of each period's salience, divided by the
+        median over windows of the largest salience: 1 for a period that is
+        as salient as the best one throughout, near 0 for one that is never
+        periodic. The salience is essential persistence times the share
+        near the top peak (see :func:`pulse_salience`).
+        """
+        top = float(np.median(self.salience.max(axis=1))) if self.salience.size else 0.0
+        profile = np.median(self.salience, axis=0) / top if top > 0 else np.zeros(len(self.candidates_s))
+        return self.candidates_s, profile
 
     @property
     def median_period_s(self) -> float:
@@ -171,14 +183,19 @@ def _viterbi(log_emit: np.ndarray, log_periods: np.ndarray, sd: float) -> np.nda
 
 
 def _anchor_phase(t, w, c, half, period) -> float | None:
-    """Phase (cycle fraction, relative to ``c``) of the most persistent position."""
+    """Phase (cycle fraction, relative to ``c``) of the most persistent position.
+
+    The most persistent class of a circle function's superlevel sets is the
+    essential one, born at the global maximum, so its peak is the argmax: no
+    diagram is needed (tests check this against the union-find diagram).
+    """
     lo, hi = np.searchsorted(t, [c - half, c + half])
     if hi - lo < 2:
         return None
     x = t[lo:hi] - c
     g = (0.5 + 0.5 * np.cos(np.pi * x / half)) * w[lo:hi]
     dens = circular_bumps(x / period, g, 48, max(0.03 / period, 0.02))
-    return float(WrappedCycle(period, dens, circle_diagram_unionfind(dens)).peak_phases[0])
+    return float(refined_phases(dens, [int(np.argmax(dens))])[0])
 
 
 def track_pulse(times_s, weights, settings: TempoSettings = TempoSettings(), period_hint_s: float | None = None) -> PulseTrack:

@@ -174,11 +174,13 @@ class _Scanner:
     settings: TreeSettings
     engine: str
     pulse_s: float
+    period_salience: tuple[np.ndarray, np.ndarray] | None = None
     cache: dict = field(default_factory=dict)
+    grids: dict = field(default_factory=dict)
 
-    @property
-    def span(self) -> float:
-        return float(self.positions.max() - self.positions.min())
+    def __post_init__(self) -> None:
+        self.lo, self.hi = float(self.positions.min()), float(self.positions.max())
+        self.span = self.hi - self.lo
 
     @property
     def width_pulses(self) -> float:
@@ -186,14 +188,25 @@ class _Scanner:
 
     def _grid(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         """Grid points ``start + offsets + k * period`` within the onsets' span, one row per cycle."""
-        lo, hi = self.positions.min(), self.positions.max()
+        lo, hi = self.lo, self.hi
         k = np.arange(np.floor((lo - start) / period), np.ceil((hi - start) / period) + 1)
         pts = start + k[:, None] * period + np.asarray(offsets, dtype=float)[None, :]
         inside = ((pts >= lo - tol) & (pts <= hi + tol)).all(axis=1)
         return pts[inside]
 
     def grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
-        """Weight of the onset nearest each grid point (0 if none within ``tol``); shape (cycles, len(offsets))."""
+        """Weight of the onset nearest each grid point (0 if none within ``tol``); shape (cycles, len(offsets)).
+
+        Readings share grids (a 4/4 bar's half is a 2/4 bar), so results are
+        cached by their arguments; callers must not modify the array.
+        """
+        offsets = np.asarray(offsets, dtype=float)
+        key = (round(start, 9), round(period, 9), offsets.round(9).tobytes(), round(tol, 9))
+        if key not in self.grids:
+            self.grids[key] = self._grid_weights(start, period, offsets, tol)
+        return self.grids[key]
+
+    def _grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         pts = self._grid(start, period, offsets, tol)
         x, w = self.positions, self.weights
         if pts.size == 0:
@@ -209,6 +222,16 @@ class _Scanner:
         """Share of the grid points ``start + offsets + k * period`` that have an onset within ``tol``."""
         gw = self.grid_weights(start, period, offsets, tol)
         return float(np.mean(gw > 0)) if gw.size else 0.0
+
+    def salience_at(self, period_s: float) -> float:
+        """The pulse scan's relative salience at ``period_s`` (log-period interpolation; 0 outside the scanned range)."""
+        if self.period_salience is None:
+            return 0.0
+        periods, profile = self.period_salience
+        lp = np.log(period_s)
+        if not np.log(periods[0]) - 1e-9 <= lp <= np.log(periods[-1]) + 1e-9:
+            return 0.0
+        return float(np.interp(lp, np.log(periods), profile))
 
     def __call__(self, length: Fraction) -> WrappedCycle:
         if length not in self.cache:
@@ -370,6 +393,7 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
             "beat": float(beat_term), "division": float(division_term),
             "unexplained": float(unexplained), "support": float(support),
+            "beat_salience": scan.salience_at(beat_s),
             "log_beat": log_beat, "log_beat_sq": log_beat ** 2,
             "compound": float(family == "compound"), "single": float(family == "single"),
             "irregular": float(family == "irregular"),
@@ -446,7 +470,7 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
 
 
 def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
-               drums: bool = False) -> MetricTree:
+               drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -460,10 +484,14 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         Persistence engine.
     drums : bool
         The events come from a drum kit (General MIDI drums).
+    period_salience : (periods_s, salience), optional
+        The pulse scan's salience profile over candidate periods in seconds
+        (:meth:`metertop.tempo.PulseTrack.salience_profile`), for the
+        ``beat_salience`` feature; without it the feature is 0.
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
-    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s)
+    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
     lattice = cycle_lattice()
     span_pulses = scan.span
     cands: list[Candidate] = []

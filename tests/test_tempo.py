@@ -81,3 +81,28 @@ def test_too_few_onsets_is_an_input_error():
         track_pulse([1.0], [1.0])
     with pytest.raises(InputError):
         track_pulse([1.0, 1.0], [1.0, 1.0])
+
+
+def test_anchor_phase_is_the_essential_peak_of_the_diagram():
+    """The phase anchoring each window is the peak of the essential class.
+
+    For a function on a circle, the superlevel-set class that never dies is
+    born at the global maximum (the elder rule; Edelsbrunner & Harer,
+    "Computational Topology", AMS 2010, sec. VII.1), so the anchor skips the
+    diagram and takes the argmax. Here it must agree with the union-find
+    diagram's first (most persistent) peak on random windows.
+    """
+    from metertop.persistence import circle_diagram_unionfind
+    from metertop.scan import WrappedCycle, circular_bumps
+    from metertop.tempo import _anchor_phase
+
+    rng = np.random.default_rng(12)
+    for _ in range(50):
+        t = np.sort(rng.uniform(0, 6, rng.integers(3, 40)))
+        w = rng.uniform(0.2, 2.0, len(t))
+        period = rng.uniform(0.15, 1.5)
+        got = _anchor_phase(t, w, 3.0, 3.0, period)
+        x = t - 3.0
+        dens = circular_bumps(x / period, (0.5 + 0.5 * np.cos(np.pi * x / 3.0)) * w, 48, max(0.03 / period, 0.02))
+        want = WrappedCycle(period, dens, circle_diagram_unionfind(dens)).peak_phases[0]
+        assert got == pytest.approx(want, abs=1e-12)
