@@ -88,3 +88,4 @@ def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
         _fail(str(exc))
     for index, name, is_drum, n_notes in rows:
         typer.echo(f"{index:3d}  {'drums ' if is_drum else 'pitched'}  {n_notes:6d} notes  {name}")
+from . import batch as _batch  # noqa: E402,F401
