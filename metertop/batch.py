@@ -293,6 +293,15 @@ def _warm_up() -> None:
 def _worker_init() -> None:
     # Ctrl-C is the parent's to handle: it stops the workers itself.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if sys.platform.startswith("linux"):
+        # If the parent is killed outright (kill -9), its workers would wait
+        # forever for work; ask the kernel to end them with it.
+        try:
+            import ctypes
+
+            ctypes.CDLL(None, use_errno=True).prctl(1, int(signal.SIGKILL))  # 1 = PR_SET_PDEATHSIG
+        except (OSError, AttributeError):
+            pass
 
 
 def _stop(pool: ProcessPoolExecutor, finished: bool) -> None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import signal
 import sys
 from pathlib import Path
 from typing import List, Optional
@@ -11,6 +12,23 @@ import typer
 
 from ..errors import MetertopError
 from .app import _fail, app
+
+
+@contextlib.contextmanager
+def _terminate_as_interrupt():
+    """Treat SIGTERM (a job scheduler's stop) like Ctrl-C: stop the workers, keep every finished line."""
+    def interrupt(signum, frame):
+        raise KeyboardInterrupt
+
+    try:
+        previous = signal.signal(signal.SIGTERM, interrupt)
+    except ValueError:  # not the main thread: leave signals alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
 
 
 @app.command("batch")
@@ -56,13 +74,13 @@ def batch_cmd(
 
             cluster = ClusterRunner(scheduler)
         batch = Batch(files, output, options, retry_errors=retry_errors)
-    except MetertopError as exc:
+    except (MetertopError, KeyboardInterrupt) as exc:
         if cluster is not None:
             cluster.close()
-        _fail(str(exc))
+        _fail(str(exc) if isinstance(exc, MetertopError) else "interrupted before the batch started", 2 if isinstance(exc, MetertopError) else 130)
 
     interrupted = False
-    with batch, (cluster or contextlib.nullcontext()):
+    with batch, (cluster or contextlib.nullcontext()), _terminate_as_interrupt():
         if batch.results.dropped_tail:
             typer.echo(f"metertop: {output}: dropped an incomplete last line left by a stopped run; that file is analysed again", err=True)
         lines = cluster.run(batch.todo, options) if cluster else run_local(batch.todo, options, jobs or default_jobs())
