@@ -9,6 +9,10 @@ Conventions
 - At most a few tasks per worker thread are in flight; each JSON line comes
   back as soon as it is ready, so the results file grows while the cluster
   works and an interrupted run loses nothing finished.
+- A task that kills its workers repeatedly (Dask's ``KilledWorker``) gives
+  its file an error line; any other failure (the scheduler lost, say) stops
+  the batch, so that a broken cluster never writes error lines for files
+  that are fine.
 """
 
 from __future__ import annotations
@@ -143,8 +147,12 @@ class ClusterRunner:
                 task = futures.pop(future)
                 try:
                     line = future.result()
-                except Exception as exc:  # the worker died or the task was lost; the batch goes on
-                    line = error_line(task, options, f"the cluster lost this file's task ({type(exc).__name__}: {exc})")
+                except Exception as exc:
+                    if type(exc).__name__ != "KilledWorker":  # the cluster itself failed: stop, write no false errors
+                        raise InputError(f"the Dask cluster at {self.address} failed ({type(exc).__name__}: {exc}); "
+                                         f"every finished file is kept: rerun to continue") from None
+                    # this file's task took its workers down again and again
+                    line = error_line(task, options, f"the cluster's workers died while analysing this file ({exc})")
                 future.release()
                 yield line
                 submit_next()
