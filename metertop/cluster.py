@@ -42,6 +42,20 @@ def require_dask() -> None:
         raise InputError(f"--scheduler needs Dask's distributed scheduler, which is not installed: {_INSTALL}") from None
 
 
+def _quiet_dask_logs() -> None:
+    import logging
+
+    import distributed  # noqa: F401  (its loggers exist once it is imported)
+
+    for name in ["distributed"] + [n for n in logging.root.manager.loggerDict if n.startswith("distributed.")]:
+        logging.getLogger(name).setLevel(logging.CRITICAL)
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def _installed_version() -> str:
     """Runs on each worker: the metertop version it imports."""
     from metertop import __version__ as version
@@ -55,8 +69,7 @@ def _connect(address: str, timeout_s: float):
     try:
         return Client(address, timeout=timeout_s, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
-        reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise InputError(f"cannot reach the Dask scheduler at {address} ({reason})") from None
+        raise InputError(f"cannot reach the Dask scheduler at {address} ({_first_line(exc)})") from None
 
 
 def _check_workers(client, address: str, wait_s: float) -> int:
@@ -97,6 +110,9 @@ class ClusterRunner:
     connect_timeout_s, worker_wait_s : float, optional
         How long to wait for the scheduler, and for its first worker
         (``CONNECT_TIMEOUT_S``, ``WORKER_WAIT_S`` by default).
+    quiet : bool
+        Silence the Dask client's own log messages in this process; the
+        failures that matter are raised as one-line errors instead.
 
     Raises
     ------
@@ -105,8 +121,11 @@ class ClusterRunner:
         workers, or the workers run another metertop version.
     """
 
-    def __init__(self, address: str, *, connect_timeout_s: float | None = None, worker_wait_s: float | None = None):
+    def __init__(self, address: str, *, connect_timeout_s: float | None = None, worker_wait_s: float | None = None,
+                 quiet: bool = True):
         require_dask()
+        if quiet:
+            _quiet_dask_logs()
         self.address = address
         self.client = _connect(address, CONNECT_TIMEOUT_S if connect_timeout_s is None else connect_timeout_s)
         try:
@@ -149,10 +168,10 @@ class ClusterRunner:
                     line = future.result()
                 except Exception as exc:
                     if type(exc).__name__ != "KilledWorker":  # the cluster itself failed: stop, write no false errors
-                        raise InputError(f"the Dask cluster at {self.address} failed ({type(exc).__name__}: {exc}); "
+                        raise InputError(f"the Dask cluster at {self.address} failed ({type(exc).__name__}: {_first_line(exc)}); "
                                          f"every finished file is kept: rerun to continue") from None
                     # this file's task took its workers down again and again
-                    line = error_line(task, options, f"the cluster's workers died while analysing this file ({exc})")
+                    line = error_line(task, options, f"the cluster's workers died while analysing this file ({_first_line(exc)})")
                 future.release()
                 yield line
                 submit_next()
