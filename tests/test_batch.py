@@ -149,15 +149,26 @@ def _wait_for_lines(path, n, proc, timeout_s=180):
     pytest.fail("batch wrote no lines in time")
 
 
-def test_resume_after_killed_run(tmp_path, corpus):
-    """Kill a real batch process part-way, rerun: finished lines are kept byte for byte, nothing is duplicated or missing."""
-    folder = tmp_path / "corpus"
-    good = _good_corpus(folder, copies=2)
-    out = tmp_path / "results.jsonl"
+@pytest.fixture(scope="module")
+def six_tunes(tmp_path_factory):
+    """Six good MIDI files: enough work to stop a batch part-way."""
+    folder = tmp_path_factory.mktemp("six") / "corpus"
+    return folder, _good_corpus(folder, copies=2)
+
+
+def _start_batch(folder, out):
+    """``metertop batch`` in a fresh interpreter and its own process group, one worker."""
     env = dict(os.environ, PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     cmd = [sys.executable, "-m", "metertop", "batch", str(folder), "-o", str(out), "--jobs", "1"]
-    proc = subprocess.Popen(cmd, cwd=tmp_path, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    return subprocess.Popen(cmd, cwd=out.parent, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             start_new_session=True)
+
+
+def test_resume_after_killed_run(tmp_path, six_tunes):
+    """Kill a real batch process part-way, rerun: finished lines are kept byte for byte, nothing is duplicated or missing."""
+    folder, good = six_tunes
+    out = tmp_path / "results.jsonl"
+    proc = _start_batch(folder, out)
     try:
         _wait_for_lines(out, 2, proc)
     finally:
@@ -178,6 +189,46 @@ def test_resume_after_killed_run(tmp_path, corpus):
     assert sorted(line["path"] for line in lines) == sorted(str(p) for p in good)
     assert all(line["status"] == "ok" for line in lines)
     assert f"({n_kept} done in an earlier run)" in res.stdout
+
+
+def _children(pid):
+    """Process ids whose parent is ``pid`` (Linux /proc)."""
+    out = []
+    for entry in os.listdir("/proc"):
+        try:
+            with open(f"/proc/{entry}/stat") as handle:
+                fields = handle.read().rsplit(")", 1)[1].split()
+        except (OSError, IndexError):
+            continue
+        if entry.isdigit() and int(fields[1]) == pid:
+            out.append(entry)
+    return out
+
+
+def test_sigterm_stops_cleanly(tmp_path, six_tunes):
+    """SIGTERM (a job scheduler's stop) ends the batch like Ctrl-C: exit code 130, a rerun hint, its worker gone."""
+    if not sys.platform.startswith("linux"):
+        pytest.skip("reads worker processes from /proc")
+    folder, good = six_tunes
+    out = tmp_path / "results.jsonl"
+    proc = _start_batch(folder, out)
+    try:
+        _wait_for_lines(out, 1, proc)
+        workers = _children(proc.pid)
+        assert workers, "the batch should have a worker process while it runs"
+        proc.terminate()
+        _, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait(timeout=60)
+    assert proc.returncode == 130, err
+    assert "interrupted" in err and "rerun the same command" in err and "Traceback" not in err
+    n = out.read_bytes().count(b"\n")
+    assert 1 <= n < len(good) and out.read_bytes().endswith(b"\n")
+    for pid in workers:  # gone, or a zombie waiting to be reaped by init
+        status = f"/proc/{pid}/status"
+        assert not os.path.exists(status) or "zombie" in open(status).read()
 
 
 def test_torn_last_line_is_dropped_and_redone(tmp_path, corpus):

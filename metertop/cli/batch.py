@@ -74,10 +74,14 @@ def batch_cmd(
 
             cluster = ClusterRunner(scheduler)
         batch = Batch(files, output, options, retry_errors=retry_errors)
-    except (MetertopError, KeyboardInterrupt) as exc:
+    except KeyboardInterrupt:
         if cluster is not None:
             cluster.close()
-        _fail(str(exc) if isinstance(exc, MetertopError) else "interrupted before the batch started", 2 if isinstance(exc, MetertopError) else 130)
+        _fail("interrupted before the batch started; nothing was analysed", 130)
+    except MetertopError as exc:
+        if cluster is not None:
+            cluster.close()
+        _fail(str(exc))
 
     interrupted = False
     with batch, (cluster or contextlib.nullcontext()), _terminate_as_interrupt():
@@ -92,7 +96,7 @@ def batch_cmd(
                     bar.update(k, batch.failed)
         except KeyboardInterrupt:
             interrupted = True
-        except MetertopError as exc:
+        except MetertopError as exc:  # the disk refused a line, or the cluster failed
             bar.close()
             _fail(str(exc))
         finally:
