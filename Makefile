@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed install clean-venv check-boost figures
+.PHONY: demo test bench bench-full bench-speed bench-batch install clean-venv check-boost figures
 
 install: $(STAMP)
 
@@ -42,3 +42,6 @@ bench-full: $(STAMP)
 
 bench-speed: $(STAMP)
 	$(BIN)/python bench/speed.py
+
+bench-batch: $(STAMP)
+	$(BIN)/python bench/batch_bench.py

@@ -251,6 +251,15 @@ def confusion_md(rows: list[dict], kind: str, detector: str) -> str:
     return head + "\n" + body + "\n"
 
 
+def kept_sections(path: Path) -> str:
+    """Sections other benchmarks wrote into ``path`` between ``<!-- section: NAME -->`` markers, to keep them."""
+    import re
+
+    old = path.read_text() if path.exists() else ""
+    pattern = re.compile(r"<!-- section: (\S+) -->.*?<!-- end section: \1 -->\n?", flags=re.S)
+    return "".join("\n" + m.group(0) for m in pattern.finditer(old))
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--tunes", type=int, default=1000, help="evaluation tunes in the sample (default 1000)")
@@ -320,7 +329,7 @@ Tunes left out of every figure are counted here (free metre, other metres, irreg
 
 {speed_md}
 """
-    args.out.write_text(text)
+    args.out.write_text(text + kept_sections(args.out))
     OUT.mkdir(parents=True, exist_ok=True)
     result_path = OUT / f"results-{stamp}{'-full' if args.full else ''}.json"
     result_path.write_text(json.dumps({"date": stamp, "command": command, "info": info, "figures": figures,

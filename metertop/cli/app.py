@@ -111,3 +111,4 @@ def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
 
 
 from . import plot as _plot  # noqa: E402,F401
+from . import batch as _batch  # noqa: E402,F401
