@@ -178,6 +178,10 @@ def barred_score(tune: ScoreTune, reading: ScoreReading):
         out.insert(0, _barred_part(m21, part, bounds, bar_q, _time_signature(m21, reading), final=True))
     for part in out.parts:
         part.makeAccidentals(inPlace=True, overrideStatus=True)
+        try:
+            part.makeBeams(inPlace=True)  # beams follow the new bars: eighths in threes in 6/8
+        except m21.exceptions21.Music21Exception:  # some tuplet and voice layouts cannot be beamed; the score is right without beams
+            pass
     return out
 
 
