@@ -21,9 +21,11 @@ Conventions
   bar within 5% of the notated bar in quarters; family and division as in
   DESIGN.md section 6; downbeat and beat F-measures at +-70 ms, that is
   +-0.117 quarters.
-- Unlike the deadpan MIDI rendering, which plays each tune with its notated
-  beat at 100 bpm, the score gives no tempo: the beat unit must come from
-  the note values alone.
+- Unlike the deadpan MIDI rendering of make bench, which plays each tune
+  with its notated beat at 100 bpm, the score gives no tempo: the beat unit
+  must come from the note values alone. ``--with-midi`` therefore shows two
+  MIDI columns: the make bench rendering, and every tune at 100 quarter
+  notes a minute, where the tempo tells as little as a score does.
 - The read notes are compared with the corpus reader's (onsets and
   durations); tunes where they differ are counted. Pitches can differ
   where an accidental held to the end of a bar: a barless tune has no bars,
@@ -198,12 +200,17 @@ def sample_tunes(split: str, n_tunes: int | None, seed: int) -> list[ScoreTune]:
     return tunes
 
 
-def _midi_rows(tunes: list[ScoreTune], jobs: int) -> list[dict]:
-    """Deadpan MIDI renderings of the same tunes, as bench/run.py scores them."""
+def _midi_rows(tunes: list[ScoreTune], jobs: int, same_quarter: bool) -> list[dict]:
+    """Deadpan MIDI renderings of the same tunes, scored as bench/run.py scores them.
+
+    ``same_quarter=False``: as make bench renders them, each tune's notated beat at 100 bpm. ``True``: every tune at
+    100 quarter notes a minute (the layout of :func:`truth_performance`), so that the tempo says nothing about the
+    notated beat, as in a score.
+    """
     import run
     from render import render
 
-    perfs = [render(t, "deadpan", seed=i) for i, t in enumerate(tunes)]
+    perfs = [truth_performance(t) if same_quarter else render(t, "deadpan", seed=i) for i, t in enumerate(tunes)]
     saved = run.DETECTORS
     run.DETECTORS = ("metertop",)
     try:
@@ -228,7 +235,8 @@ def main(argv: list[str] | None = None) -> int:
     rows = score_rows(tunes, args.jobs, progress=sys.stderr.isatty())
     columns = {"score time": aggregate(rows)}
     if args.with_midi:
-        columns["deadpan MIDI"] = aggregate([r for r in _midi_rows(tunes, args.jobs) if r["detector"] == "metertop"])
+        columns["deadpan MIDI (notated beat at 100 bpm, as make bench)"] = aggregate(_midi_rows(tunes, args.jobs, False))
+        columns["deadpan MIDI (quarter at 100 bpm)"] = aggregate(_midi_rows(tunes, args.jobs, True))
     keys = list(columns["score time"].keys())
     for col in columns.values():
         keys += [k for k in col if k not in keys]
