@@ -36,6 +36,8 @@ __all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "check_input_file", 
 
 MIDI_SUFFIXES = (".mid", ".midi", ".smf", ".kar")
 ONSET_SUFFIXES = (".csv", ".tsv", ".txt", ".json")
+# Scores are read by metertop.scores, one analysis per tune.
+SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".abc", ".krn")
 # Far beyond any real take (about 28 hours); guards against garbage values.
 _MAX_TIME_S = 1.0e5
 
@@ -201,10 +203,10 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
         raise InputError(f"{path}: track selection applies to MIDI files only")
     if suffix in ONSET_SUFFIXES or suffix == "":
         return _load_onset_list(path)
-    if suffix in (".musicxml", ".xml", ".mxl", ".abc", ".krn"):
+    if suffix in SCORE_SUFFIXES:
         raise InputError(f"{path}: a score file; scores are read per tune by metertop.scores.analyse_score")
     raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}), an onset list ({', '.join(ONSET_SUFFIXES)}) "
-                     "or a score (.musicxml, .xml, .mxl, .abc, .krn)")
+                     f"or a score ({', '.join(SCORE_SUFFIXES)})")
 
 
 def _open_midi(path: str):

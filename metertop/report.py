@@ -56,8 +56,8 @@ def summary(result: MetreResult, name: str | None = None) -> str:
         lines.append(f"{indent}the file says 4/4, but the playing points to {result.time_signature}; "
                      f"sequencers write 4/4 when nobody sets a time signature")
     elif notated:
-        heard = "the notes" if result.source == "score" else "the playing"
-        lines.append(f"{indent}the file says {notated}, but {heard} point{'' if result.source == 'score' else 's'} to {result.time_signature}")
+        heard = "the notes point" if result.source == "score" else "the playing points"
+        lines.append(f"{indent}the file says {notated}, but {heard} to {result.time_signature}")
     alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))

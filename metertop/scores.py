@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 
 from .errors import InputError
+from . import load
 from .load import NoteTable, check_input_file
 from .pipeline import Analysis, Settings, analyse_detailed
 from .result import MetreResult, Reading
@@ -49,7 +50,7 @@ __all__ = [
 ]
 
 #: File suffixes read as scores, and music21's name of their format.
-SCORE_SUFFIXES = {".musicxml": "musicxml", ".xml": "musicxml", ".mxl": "musicxml", ".abc": "abc", ".krn": "humdrum"}
+SCORE_SUFFIXES = dict(zip(load.SCORE_SUFFIXES, ("musicxml", "musicxml", "musicxml", "abc", "humdrum")))
 #: Tempo (quarter notes per minute) for seconds when the score states none.
 DEFAULT_QUARTER_BPM = 100.0
 #: Pulse lengths a score's grid can have, in quarters (note values, dotted, and triplets).
