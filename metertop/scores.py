@@ -776,8 +776,12 @@ def notated_verdict(tune: ScoreTune, analysis: Analysis):
     return check_notated(analysis, tune.notated_time_signature)
 
 
-def analyse_score(path: str | os.PathLike, *, tunes: list[int] | None = None, settings: Settings = Settings()) -> list[ScoreAnalysis]:
+def analyse_score(path: str | os.PathLike, *, tunes: list[int] | None = None, settings: Settings = Settings(),
+                  on_error=None) -> list[ScoreAnalysis]:
     """Read a score file and analyse each of its tunes (see :func:`read_score`, :func:`analyse_tune`).
+
+    ``on_error(index, error)``, if given, receives each tune that cannot be
+    read or analysed, and the others go on; by default the first raises.
 
     Raises
     ------
@@ -785,9 +789,12 @@ def analyse_score(path: str | os.PathLike, *, tunes: list[int] | None = None, se
         For unreadable input, or a tune too short for any metre.
     """
     out = []
-    for tune in read_score(path, tunes=tunes):
+    for tune in read_score(path, tunes=tunes, on_error=on_error):
         try:
             out.append(analyse_tune(tune, settings=settings))
         except InputError as exc:
-            raise InputError(f"{os.fspath(path)}: tune {tune.index}: {exc}") from None
+            error = InputError(f"{os.fspath(path)}: tune {tune.index}: {exc}")
+            if on_error is None:
+                raise error from None
+            on_error(tune.index, error)
     return out

@@ -483,6 +483,20 @@ def test_bad_tune_does_not_stop_the_others(tmp_path):
     assert "tune 2" in res.stderr
 
 
+def test_analyse_score_goes_on_after_a_bad_tune(tmp_path):
+    """From Python, on_error receives the tune that fails and the others are analysed."""
+    path = tmp_path / "mixed.abc"
+    path.write_text("X:1\nT:Short\nK:C\nCDE\n\n" + barless_abc_of(ROW_YOUR_BOAT, index=2, repeats=2) + "\nX:3\nT:No key\nCDEF\n")
+    errors = []
+    analyses = analyse_score(path, on_error=lambda index, error: errors.append((index, str(error))))
+    assert [a.tune.index for a in analyses] == [2]
+    errors = dict(errors)
+    assert sorted(errors) == [1, 3]
+    assert "too few onsets" in errors[1] and "K:" in errors[3]
+    with pytest.raises(InputError, match="tune 1"):
+        analyse_score(path)
+
+
 def test_missing_music21_says_how_to_install(tmp_path, monkeypatch):
     """Without the scores extra, reading a score is one line that names the extra."""
     path = tmp_path / "x.abc"
