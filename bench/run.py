@@ -41,7 +41,8 @@ OUT = HERE / "out"
 SAMPLE_SEED = 20261202
 DETECTORS = ("metertop", "baseline", "persistence only")
 ABLATION_MODEL = HERE / "models" / "persistence_only.json"
-SETS = (("deadpan", "deadpan folk"), ("played", "played folk"), ("played-flat", "played folk, flat velocity"), ("groove", "drum grooves"))
+SETS = (("deadpan", "deadpan folk"), ("score", "folk read as scores (score time)"), ("played", "played folk"),
+        ("played-flat", "played folk, flat velocity"), ("groove", "drum grooves"))
 
 
 # ---- detectors -------------------------------------------------------------
@@ -174,15 +175,17 @@ def build_performances(n_tunes: int | None, n_grooves: int, progress: bool) -> t
         perfs.append(render(tune, "played", seed=10_000 + i))
         perfs.append(render(tune, "played-flat", seed=10_000 + i))
     perfs += make_grooves(n_grooves, seed=SAMPLE_SEED)
-    info = {"eval tunes": len(eval_tunes), "grooves": n_grooves, "corpus tunes": len(tunes), "corpus report": format_report(report)}
+    info = {"eval tunes": len(eval_tunes), "grooves": n_grooves, "corpus tunes": len(tunes), "corpus report": format_report(report),
+            "tune sample": eval_tunes}
     return perfs, info
 
 
-def run(perfs: list[Performance], jobs: int, progress: bool) -> list[dict]:
+def run(perfs: list, jobs: int, progress: bool, work=_run_one) -> list[dict]:
+    """``work`` (default: both detectors on a Performance) on every piece in parallel; its lists of rows, joined."""
     rows: list[dict] = []
     start = time.time()
     with mp.get_context("fork").Pool(jobs) as pool:
-        for k, result in enumerate(pool.imap_unordered(_run_one, perfs, chunksize=4), 1):
+        for k, result in enumerate(pool.imap_unordered(work, perfs, chunksize=4), 1):
             rows += result
             if progress and (k % 100 == 0 or k == len(perfs)):
                 rate = k / (time.time() - start)
@@ -236,8 +239,8 @@ def per_piece_speed(rows: list[dict], figures: dict) -> str:
         figures.setdefault("per piece", {})[title] = {"metertop_s": float(np.median([r["seconds"] for r in m])),
                                                        "baseline_s": float(np.median([r["seconds"] for r in b])) if b else None,
                                                        "ratio_to_parse": float(np.median(ratio)) if ratio else None}
-        lines.append(f"| {title} | {np.median([r['seconds'] for r in m]) * 1000:.0f} ms | "
-                     f"{np.median([r['seconds'] for r in b]) * 1000:.0f} ms | {ratio_txt} |")
+        baseline_txt = f"{np.median([r['seconds'] for r in b]) * 1000:.0f} ms" if b else "-"
+        lines.append(f"| {title} | {np.median([r['seconds'] for r in m]) * 1000:.0f} ms | {baseline_txt} | {ratio_txt} |")
     return "\n".join(lines)
 
 
@@ -279,6 +282,10 @@ def main() -> int:
     perfs, info = build_performances(n_tunes, n_grooves, progress)
     print(f"{len(perfs)} performances ({info['eval tunes']} tunes, {info['grooves']} grooves)", file=sys.stderr)
     rows = run(perfs, args.jobs, progress)
+    # The same tunes as barless scores, analysed in score time (bench/score_bench.py).
+    from score_bench import score_rows
+
+    rows += score_rows(info.pop("tune sample"), args.jobs, progress)
     md_tables, figures = tables(rows)
     from speed import speed_table
 
@@ -300,6 +307,11 @@ Measured {stamp} with `{command}` (`python bench/run.py{' --full' if args.full e
 [bench/split.md](../bench/split.md); nothing was trained or tuned on them), each rendered deadpan, played, and played with
 flat velocity, plus {info['grooves']} generated drum grooves. Definitions: DESIGN.md, Evaluation; code: `bench/metrics.py`.
 Crashes: {len(errors)}.
+
+*Folk read as scores* are the same tunes as barless ABC (barlines gone, `M:none`), read and analysed in score time
+(`bench/score_bench.py`): bars are compared in quarters, and times laid out at 100 quarters a minute, so that the +-70 ms
+window is +-0.117 quarters. The deadpan renderings play each tune's notated beat at 100 bpm; a score states no tempo,
+so there the beat unit comes from the note values alone. The baseline does not read scores.
 
 The baseline is autocorrelation metre induction with accent weighting (Brown 1993; Toiviainen & Eerola 2006), in
 `bench/baseline.py`. Its duple/triple figure on deadpan folk is {_fmt(anchor)}; the paper reports 96% on about 13,000 folk

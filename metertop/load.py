@@ -32,10 +32,12 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "list_tracks", "notes_from_onsets", "MIDI_SUFFIXES", "ONSET_SUFFIXES"]
+__all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "check_input_file", "list_tracks", "notes_from_onsets", "MIDI_SUFFIXES", "ONSET_SUFFIXES"]
 
 MIDI_SUFFIXES = (".mid", ".midi", ".smf", ".kar")
 ONSET_SUFFIXES = (".csv", ".tsv", ".txt", ".json")
+# Scores are read by metertop.scores, one analysis per tune.
+SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".abc", ".krn")
 # Far beyond any real take (about 28 hours); guards against garbage values.
 _MAX_TIME_S = 1.0e5
 
@@ -159,6 +161,18 @@ def _check_times(t: np.ndarray, what: str) -> None:
         raise InputError(f"{what} times must not be negative (found {t.min():g} s)")
 
 
+def check_input_file(path: str | os.PathLike) -> str:
+    """The path as a string, if it names an existing, non-empty file; else an InputError."""
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise InputError(f"{path}: is a folder, not a file")
+    if os.path.getsize(path) == 0:
+        raise InputError(f"{path}: file is empty")
+    return path
+
+
 def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> NoteTable:
     """Read notes from a Standard MIDI File or an onset list.
 
@@ -176,13 +190,7 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
     InputError
         If the file is missing, empty, unreadable or holds no notes.
     """
-    path = os.fspath(path)
-    if not os.path.exists(path):
-        raise InputError(f"{path}: no such file")
-    if os.path.isdir(path):
-        raise InputError(f"{path}: is a folder, not a file")
-    if os.path.getsize(path) == 0:
-        raise InputError(f"{path}: file is empty")
+    path = check_input_file(path)
     suffix = os.path.splitext(path)[1].lower()
     try:
         with open(path, "rb") as fh:
@@ -195,7 +203,10 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
         raise InputError(f"{path}: track selection applies to MIDI files only")
     if suffix in ONSET_SUFFIXES or suffix == "":
         return _load_onset_list(path)
-    raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}) or an onset list ({', '.join(ONSET_SUFFIXES)})")
+    if suffix in SCORE_SUFFIXES:
+        raise InputError(f"{path}: a score file; scores are read per tune by metertop.scores.analyse_score")
+    raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}), an onset list ({', '.join(ONSET_SUFFIXES)}) "
+                     f"or a score ({', '.join(SCORE_SUFFIXES)})")
 
 
 def _open_midi(path: str):

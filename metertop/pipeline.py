@@ -108,8 +108,14 @@ def analyse(source, *, tracks: list[int] | None = None, settings: Settings = Set
     return analyse_detailed(source, tracks=tracks, settings=settings).result
 
 
-def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Settings = Settings()) -> Analysis:
-    """Like :func:`analyse`, but also return the intermediate stages."""
+def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Settings = Settings(), pulse_grid=None) -> Analysis:
+    """Like :func:`analyse`, but also return the intermediate stages.
+
+    ``pulse_grid``, if given, is called as ``pulse_grid(tracked, times_s,
+    weights)`` and returns the :class:`~metertop.tempo.PulseTrack` to use
+    instead of the tracked one: score input makes the pulse exact in note
+    values this way (:mod:`metertop.scores`).
+    """
     notes = _as_notes(source, tracks)
     events = merge_events(notes, settings.merge_window_s)
     t = events.times_s
@@ -118,6 +124,8 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
                          f"(need at least {MIN_EVENTS} events over {MIN_SPAN_S} s)")
     w = event_weights(events, settings.accents)
     pulse = track_pulse(t, w, settings.tempo)
+    if pulse_grid is not None:
+        pulse = pulse_grid(pulse, t, w)
     tau = pulse.warp(t)
     pulse_s = pulse.median_period_s
     tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums,

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from .result import MetreResult
 
-__all__ = ["summary"]
+__all__ = ["summary", "score_summary"]
 
 
 def _label(time_signature: str, grouping) -> str:
@@ -52,12 +52,35 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     notated = result.notated_time_signature
     if notated == result.time_signature:
         lines.append(f"{indent}the file's own time signature {notated} matches the proposal")
-    elif notated == "4/4":
+    elif notated == "4/4" and result.source == "midi":
         lines.append(f"{indent}the file says 4/4, but the playing points to {result.time_signature}; "
                      f"sequencers write 4/4 when nobody sets a time signature")
     elif notated:
-        lines.append(f"{indent}the file says {notated}, but the playing points to {result.time_signature}")
+        heard = "the notes point" if result.source == "score" else "the playing points"
+        lines.append(f"{indent}the file says {notated}, but {heard} to {result.time_signature}")
     alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))
+    return "\n".join(lines)
+
+
+def _quarters(x: float) -> str:
+    return f"{x:g} quarter{'' if x == 1 else 's'}"
+
+
+def score_summary(result: MetreResult, name: str | None = None) -> str:
+    """:func:`summary` of a tune read from a score, with its bar, beat and pickup in quarters.
+
+    ``result`` carries the score keys of :func:`metertop.scores.analyse_tune`.
+    """
+    extra = result.extra
+    tempo = (f"seconds at the score's tempo (quarter = {extra['quarter_bpm']:g})" if extra["tempo_stated"]
+             else f"the score states no tempo; seconds at quarter = {extra['quarter_bpm']:g}")
+    tune = f"tune {extra['tune']}" + (f": {extra['title']}" if extra["title"] else "")
+    lines = summary(result, name=f"{name} - {tune}" if name else tune).splitlines()
+    indent = "  "
+    pickup = extra["pickup_quarters"]
+    lines.insert(2, f"{indent}in score time: bar {_quarters(extra['bar_quarters'])}, beat {_quarters(extra['beat_quarters'])}, "
+                    + (f"first downbeat {_quarters(pickup)} after the first note" if pickup else "first note on a downbeat")
+                    + f"; {tempo}")
     return "\n".join(lines)

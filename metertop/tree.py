@@ -76,6 +76,10 @@ class TreeSettings:
     """How readings are measured, and the model that scores them."""
 
     beat_reference_s: float = 0.6  # tempo features count octaves from here
+    # Where compound beats count octaves from, if not from beat_reference_s:
+    # score input sets it to a dotted quarter, the notated compound beat
+    # (common practice), while beat_reference_s is a quarter.
+    compound_beat_reference_s: float | None = None
     min_beat_s: float = 0.2
     max_beat_s: float = 2.0
     max_bar_s: float = 8.0
@@ -388,7 +392,10 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         unexplained = _unexplained(cyc, ((x0 + fine_grid) % L) / L, min(tol, 0.25 * fine / L))
         beat_s = (L / len(grouping) if grouping else float(beat)) * pulse_s  # uneven beats: their mean
         family = _family(n, division, grouping)
-        log_beat = float(np.log2(beat_s / s.beat_reference_s))
+        reference_s = s.beat_reference_s
+        if division == 3 and s.compound_beat_reference_s is not None:
+            reference_s = s.compound_beat_reference_s
+        log_beat = float(np.log2(beat_s / reference_s))
         features = {
             "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
             "beat": float(beat_term), "division": float(division_term),

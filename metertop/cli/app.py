@@ -53,12 +53,15 @@ def _root(
 
 @app.command("analyse")
 def analyse_cmd(
-    files: List[Path] = typer.Argument(..., help="MIDI files (.mid) or onset lists (.csv, .tsv, .txt, .json)."),
+    files: List[Path] = typer.Argument(..., help="MIDI files (.mid), onset lists (.csv, .tsv, .txt, .json) or scores (.musicxml, .xml, .mxl, .abc, .krn)."),
     json_out: bool = typer.Option(False, "--json", help="Print one JSON line per file instead of a summary."),
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
     engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
     plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure to this file (.png, .svg or .pdf); one FILE only."),
+    tune: Optional[List[int]] = typer.Option(None, "--tune", help="Score files: analyse only tune N of an ABC or kern file holding several (repeatable; from 1)."),
+    write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the proposed metre."),
+    reading: int = typer.Option(1, "--reading", help="With --write-score: write the Nth reading of the alternatives (1 is the proposal)."),
     force: bool = typer.Option(False, "--force", help="Replace an existing output file."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
@@ -73,8 +76,22 @@ def analyse_cmd(
         if len(files) != 1:
             _fail(f"--plot draws one file, got {len(files)}; use 'metertop plot FILE -o OUT' for each")
         prepare_plot(plot, files[0], force)
+    from .score_files import analyse_score_file, check_score_options
+    from ..scores import is_score_path
+
+    problem = check_score_options(list(files), write_score, reading, tune)
+    if problem:
+        _fail(problem)
     failed = 0
     for i, path in enumerate(files):
+        if is_score_path(path):
+            failed += analyse_score_file(path, json_out=json_out, settings=settings, tunes=list(tune) if tune else None,
+                                         write_score=write_score, reading=reading, force=force, label=len(files) > 1, first=i == 0)
+            continue
+        if tune:
+            typer.echo(f"metertop: error: {path}: --tune applies to score files (ABC, kern, MusicXML)", err=True)
+            failed += 1
+            continue
         try:
             if plot is not None:
                 result = draw_and_save(path, plot, force=force, tracks=track, settings=settings).result
