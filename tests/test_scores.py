@@ -325,6 +325,20 @@ def test_notes_across_a_barline_are_tied(tmp_path):
     assert _tied_notes(score) == _notes(tune)
 
 
+def test_input_barlines_and_time_signature_are_ignored(tmp_path):
+    """The same tune barred in a wrong 4/4 gives the barless tune's reading, and reports the 4/4 it says."""
+    abc = tmp_path / "grace.abc"
+    abc.write_text(barless_abc_of(AMAZING_GRACE, repeats=2))
+    (plain,) = analyse_score(abc)
+    wrong = dataclasses.replace(plain.reading(1), time_signature="4/4", beats_per_bar=4, bar_quarters=4.0,
+                                beat_quarters=1.0, pickup_quarters=0.0)
+    barred = write_score(plain.tune, wrong, tmp_path / "grace-4-4.musicxml")
+    (again,) = analyse_score(barred)
+    assert again.tune.notated_time_signature == "4/4" and again.result.notated_time_signature == "4/4"
+    assert _reading(again.result) == _reading(plain.result)
+    assert again.result.time_signature == "3/4"
+
+
 def _essen_barless(n_per_class: int = 2) -> list[tuple[str, str]]:
     """Barless ABC texts of Essen tunes from one training file (kinder0), a few per notated metre, in file order."""
     import essen
