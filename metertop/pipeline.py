@@ -12,6 +12,7 @@ array of onset times in seconds, and returns a frozen
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from dataclasses import dataclass, field
 
@@ -23,9 +24,9 @@ from .events import merge_events
 from .load import NoteTable, load_notes, notes_from_onsets
 from .result import Level, MetreResult, Reading, Segment, make_result
 from .tempo import PulseTrack, TempoSettings, track_pulse
-from .tree import MetricTree, TreeSettings, build_tree
+from .tree import MetricTree, TreeSettings, build_tree, promote
 
-__all__ = ["Settings", "Analysis", "analyse", "analyse_detailed", "MIN_EVENTS"]
+__all__ = ["Settings", "Analysis", "analyse", "analyse_detailed", "choose_reading", "MIN_EVENTS"]
 
 # Two bars of the slowest common metre need at least this many events.
 MIN_EVENTS = 8
@@ -53,6 +54,8 @@ class Analysis:
     weights: np.ndarray
     pulse: PulseTrack
     tree: MetricTree
+    notes: NoteTable | None = None
+    settings: Settings | None = None
 
 
 def _as_notes(source, tracks) -> NoteTable:
@@ -115,7 +118,63 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     pulse_s = pulse.median_period_s
     tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums)
     result = _assemble(notes, t, pulse, tree, settings)
-    return Analysis(result, t, w, pulse, tree)
+    return Analysis(result, t, w, pulse, tree, notes, settings)
+
+
+def choose_reading(analysis: Analysis, *, rank: int | None = None, time_signature: str | None = None) -> Analysis:
+    """The analysis again, with another reading chosen.
+
+    Parameters
+    ----------
+    analysis : Analysis
+        From :func:`analyse_detailed`.
+    rank : int, optional
+        The reading ranked ``rank`` among the result's ``alternatives``
+        (1 is the proposal itself).
+    time_signature : str, optional
+        The best-scored reading of this notated metre (see
+        :mod:`metertop.notation`): its phase and bars are fitted to the
+        playing, along the same tempo curve.
+
+    Returns
+    -------
+    Analysis
+        Its result describes the chosen reading; ``alternatives`` rank it
+        first and keep the others in their order; ``confidence`` is the
+        chosen reading's probability under the model.
+
+    Raises
+    ------
+    InputError
+        For a rank beyond the alternatives, a time signature metertop cannot
+        read, or one no reading of which fits the piece's tempo and length.
+    """
+    from .notation import notated_metre
+
+    if (rank is None) == (time_signature is None):
+        raise ValueError("give exactly one of rank and time_signature")
+    tree, pulse = analysis.tree, analysis.pulse
+    settings = analysis.settings or Settings()
+    if rank is not None:
+        from_pulses = float(pulse.warp([analysis.times_s[0] - 0.05])[0])
+        indices = _reading_indices(tree, pulse, from_pulses, settings.n_alternatives)
+        if not 1 <= rank <= len(indices):
+            raise InputError(f"there is no reading {rank}: this piece has {len(indices)} (see 'alternatives')")
+        index = indices[rank - 1]
+    else:
+        metre = notated_metre(time_signature)
+        index = next((k for k, c in enumerate(tree.candidates) if metre.matches(c.beats_per_bar, c.division, c.grouping)), None)
+        if index is None:
+            raise InputError(f"no reading in {metre.text} fits this piece: its bars would fall outside the tempo range "
+                             f"(beats of {settings.tree.min_beat_s:g}-{settings.tree.max_beat_s:g} s, bars up to {settings.tree.max_bar_s:g} s) "
+                             "or be too long for the piece")
+    tau = pulse.warp(analysis.times_s)
+    chosen = promote(tree, index, tau, analysis.weights, pulse.median_period_s, settings.tree, engine=settings.engine)
+    notes = analysis.notes if analysis.notes is not None else notes_from_onsets(analysis.times_s)
+    result = _assemble(notes, analysis.times_s, pulse, chosen, settings)
+    how = f"reading {rank}" if rank is not None else f"time signature {time_signature}"
+    result = dataclasses.replace(result, extra={**result.extra, "chosen": how})
+    return Analysis(result, analysis.times_s, analysis.weights, pulse, chosen, analysis.notes, settings)
 
 
 def _grid_times(pulse: PulseTrack, start_pulses: float, step_pulses: np.ndarray, bar_pulses: float, t0: float, t1: float, tol_s: float) -> np.ndarray:
@@ -170,7 +229,9 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
         downbeats_s=downbeats,
         beats_s=beats,
         alternatives=alternatives,
-        segments=[Segment(t0, t1, best.time_signature)],
+        segments=[Segment(t0, t1, best.time_signature, best.beats_per_bar, best.division if best.grouping is None else None,
+                          list(best.grouping) if best.grouping else None, bar_s,
+                          float(downbeats[0]) if len(downbeats) else None, 0.0)],
         n_events=len(t),
         duration_s=t1 - t0,
         notated_time_signature=notated,
@@ -178,16 +239,28 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
     )
 
 
-def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[Reading]:
-    """Distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
+def _reading_indices(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[int]:
+    """Candidates that are distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
     out, seen = [], set()
-    for cand, prob in zip(tree.candidates, tree.probabilities):
-        bar = float(cand.bar)
-        phase_s = _first_at(pulse, cand.downbeat_pulses, bar, from_pulses)
+    for k, cand in enumerate(tree.candidates):
+        phase_s = _first_at(pulse, cand.downbeat_pulses, float(cand.bar), from_pulses)
         key = (cand.time_signature, cand.grouping, round(phase_s, 2))
         if key in seen:
             continue
         seen.add(key)
+        out.append(k)
+        if len(out) >= limit:
+            break
+    return out
+
+
+def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[Reading]:
+    """Distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
+    out = []
+    for k in _reading_indices(tree, pulse, from_pulses, limit):
+        cand, prob = tree.candidates[k], tree.probabilities[k]
+        bar = float(cand.bar)
+        phase_s = _first_at(pulse, cand.downbeat_pulses, bar, from_pulses)
         out.append(Reading(
             rank=len(out) + 1,
             time_signature=cand.time_signature,
@@ -199,6 +272,4 @@ def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit
             score=cand.score,
             probability=float(prob),
         ))
-        if len(out) >= limit:
-            break
     return out

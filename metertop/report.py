@@ -50,7 +50,10 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     lines.append(f"{indent}first downbeat {first}; {len(result.downbeats_s)} bars, {len(result.beats_s)} beats "
                  f"over {result.duration_s:.1f} s ({result.n_events} events)")
     notated = result.notated_time_signature
-    if notated == result.time_signature:
+    chosen = result.extra.get("chosen")
+    if chosen:
+        lines.append(f"{indent}chosen: {chosen}" + (f" (the file says {notated})" if notated else ""))
+    elif notated == result.time_signature:
         lines.append(f"{indent}the file's own time signature {notated} matches the proposal")
     elif notated == "4/4":
         lines.append(f"{indent}the file says 4/4, but the playing points to {result.time_signature}; "

@@ -46,33 +46,44 @@ def analyse_cmd(
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
     engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
+    time_signature: Optional[str] = typer.Option(None, "--time-signature", "-s", help="Fit this time signature (e.g. 7/8) instead of proposing one; warns when the playing contradicts it."),
+    reading: Optional[int] = typer.Option(None, "--reading", help="Report and write the Nth of the alternative readings (1 is the proposal)."),
+    write_midi: Optional[Path] = typer.Option(None, "--write-midi", help="Write the notes with the reading's tempo map and time signatures as a Standard MIDI File."),
+    beats: Optional[Path] = typer.Option(None, "--beats", help="Write every beat's time, bar and beat position as a TSV file."),
+    force: bool = typer.Option(False, "--force", help="Replace output files that exist."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
     from ..export import to_json_line
     from ..persistence import ENGINES
-    from ..pipeline import Settings, analyse
+    from ..pipeline import Settings
     from ..report import summary
+    from .writeback import analyse_one, check_options
 
     if engine not in ENGINES:
         _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
     if not merge_ms >= 0 or merge_ms > 1000:
         _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
     settings = Settings(merge_window_s=merge_ms / 1000.0, engine=engine)
+    try:
+        check_options(files, time_signature, reading, write_midi, beats, force)
+    except MetertopError as exc:
+        _fail(str(exc))
     failed = 0
     for i, path in enumerate(files):
         try:
-            result = analyse(path, tracks=list(track) if track else None, settings=settings)
+            result, extra, lines = analyse_one(path, list(track) if track else None, settings, time_signature, reading, write_midi,
+                                               beats, force)
         except MetertopError as exc:
             message = str(exc)
             typer.echo(f"metertop: error: {message if str(path) in message else f'{path}: {message}'}", err=True)
             failed += 1
             continue
         if json_out:
-            typer.echo(to_json_line(result))
+            typer.echo(to_json_line(result, **extra))
         else:
             if i:
                 typer.echo("")
-            typer.echo(summary(result, name=str(path) if len(files) > 1 else None))
+            typer.echo("\n".join([summary(result, name=str(path) if len(files) > 1 else None)] + lines))
     if failed:
         raise typer.Exit(2)
 
@@ -88,3 +99,4 @@ def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
         _fail(str(exc))
     for index, name, is_drum, n_notes in rows:
         typer.echo(f"{index:3d}  {'drums ' if is_drum else 'pitched'}  {n_notes:6d} notes  {name}")
+from . import check as _check  # noqa: E402,F401
