@@ -23,6 +23,7 @@ from .errors import InputError
 from .events import merge_events
 from .load import NoteTable, load_notes, notes_from_onsets
 from .result import Level, MetreResult, Reading, Segment, make_result
+from .segments import SegmentReading, SegmentSettings, find_segments
 from .tempo import PulseTrack, TempoSettings, track_pulse
 from .tree import MetricTree, TreeSettings, build_tree, promote
 
@@ -43,6 +44,7 @@ class Settings:
     tempo: TempoSettings = field(default_factory=TempoSettings)
     tree: TreeSettings = field(default_factory=TreeSettings)
     n_alternatives: int = 5
+    segments: SegmentSettings = field(default_factory=SegmentSettings)
 
 
 @dataclass(frozen=True)
@@ -117,7 +119,8 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     tau = pulse.warp(t)
     pulse_s = pulse.median_period_s
     tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums)
-    result = _assemble(notes, t, pulse, tree, settings)
+    segments = find_segments(tau, w, pulse_s, tree, settings.tree, settings.engine, events.has_drums, settings.segments)
+    result = _assemble(notes, t, pulse, tree, settings, segments)
     return Analysis(result, t, w, pulse, tree, notes, settings)
 
 
@@ -194,16 +197,40 @@ def _first_at(pulse: PulseTrack, start_pulses: float, length_pulses: float, from
     return float(pulse.unwarp([start_pulses + k * length_pulses])[0])
 
 
-def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings) -> MetreResult:
+def _segment_grids(pulse: PulseTrack, segments: list[SegmentReading], t0: float, t1: float, tol: float) -> tuple[np.ndarray, np.ndarray, list[Segment]]:
+    """Downbeats and beats of each segment's reading within its span, and the segments as results."""
+    downbeats, beats, out = [], [], []
+    for k, seg in enumerate(segments):
+        c = seg.reading
+        lo = t0 if k == 0 else float(pulse.unwarp([seg.start_pulses])[0])
+        hi = t1 if k == len(segments) - 1 else float(pulse.unwarp([seg.end_pulses])[0])
+        d = _grid_times(pulse, c.downbeat_pulses, np.array([0.0]), float(c.bar), t0, t1, tol)
+        b = _grid_times(pulse, c.downbeat_pulses, c.beat_offsets(), float(c.bar), t0, t1, tol)
+        a = lo - (tol if k == 0 else tol / 10)
+        z = hi + tol if k == len(segments) - 1 else hi - tol / 10
+        d, b = d[(d >= a) & (d < z)], b[(b >= a) & (b < z)]
+        downbeats.append(d), beats.append(b)
+        bar_s = float(np.median(np.diff(d))) if len(d) > 1 else float(c.bar) * pulse.median_period_s
+        out.append(Segment(lo, hi, c.time_signature, c.beats_per_bar, c.division if c.grouping is None else None,
+                           list(c.grouping) if c.grouping else None, bar_s, float(d[0]) if len(d) else None, float(seg.log_odds)))
+    return np.concatenate(downbeats), np.concatenate(beats), out
+
+
+def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings,
+              segments: list[SegmentReading] | None = None) -> MetreResult:
     best = tree.best
     t0, t1 = float(t[0]), float(t[-1])
     tol = 0.05
     bar_p = float(best.bar)
-    downbeats = _grid_times(pulse, best.downbeat_pulses, np.array([0.0]), bar_p, t0, t1, tol)
-    beats = _grid_times(pulse, best.downbeat_pulses, best.beat_offsets(), bar_p, t0, t1, tol)
+    if segments is None or len(segments) < 2:
+        segments = [SegmentReading(float(pulse.warp([t0])[0]), float(pulse.warp([t1])[0]), best, 0.0)]
+    downbeats, beats, segment_results = _segment_grids(pulse, segments, t0, t1, tol)
     pulse_s = pulse.median_period_s
-    bar_s = float(np.median(np.diff(downbeats))) if len(downbeats) > 1 else bar_p * pulse_s
-    beat_s = float(np.median(np.diff(beats))) if len(beats) > 1 else float(best.beat) * pulse_s
+    # The main reading's own grid gives its bar and beat, also where other segments interrupt it.
+    main_d = _grid_times(pulse, best.downbeat_pulses, np.array([0.0]), bar_p, t0, t1, tol)
+    main_b = _grid_times(pulse, best.downbeat_pulses, best.beat_offsets(), bar_p, t0, t1, tol)
+    bar_s = float(np.median(np.diff(main_d))) if len(main_d) > 1 else bar_p * pulse_s
+    beat_s = float(np.median(np.diff(main_b))) if len(main_b) > 1 else float(best.beat) * pulse_s
     from_pulses = float(pulse.warp([t0 - tol])[0])
     levels = []
     for name in ("subdivision", "beat", "bar", "hypermeasure"):
@@ -229,9 +256,7 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
         downbeats_s=downbeats,
         beats_s=beats,
         alternatives=alternatives,
-        segments=[Segment(t0, t1, best.time_signature, best.beats_per_bar, best.division if best.grouping is None else None,
-                          list(best.grouping) if best.grouping else None, bar_s,
-                          float(downbeats[0]) if len(downbeats) else None, 0.0)],
+        segments=segment_results,
         n_events=len(t),
         duration_s=t1 - t0,
         notated_time_signature=notated,

@@ -111,9 +111,8 @@ def _bars_of(result: MetreResult) -> list[tuple[str, list | None]]:
     segs = list(result.segments)
     out = []
     for d in np.asarray(result.downbeats_s, dtype=np.float64):
-        seg = next((s for s in segs if s.start_s - 1e-6 <= d < s.end_s + 1e-6), None)
-        if seg is None and segs:
-            seg = segs[0] if d < segs[0].start_s else segs[-1]
+        # A segment after a change starts on its first downbeat; earlier bar lines belong to the first segment.
+        seg = next((s for s in reversed(segs) if s.start_s - 1e-3 <= d), segs[0] if segs else None)
         if seg is None or (seg.grouping is None and seg.time_signature == result.time_signature):
             out.append((result.time_signature, result.grouping))
         else:
