@@ -308,7 +308,9 @@ def _words(metre: NotatedMetre, verdict: str, rel: str, notated: ReadingScore, b
 
 
 def _times(log_odds: float) -> str:
-    return f"{np.exp(log_odds):.0f} times" if log_odds < np.log(1e6) else "over a million times"
+    if log_odds >= np.log(1e6):
+        return "over a million times"
+    return f"{np.exp(log_odds):.1f} times" if log_odds < np.log(10) else f"{np.exp(log_odds):.0f} times"
 
 
 @dataclass(frozen=True)

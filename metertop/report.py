@@ -60,6 +60,9 @@ def summary(result: MetreResult, name: str | None = None) -> str:
                      f"sequencers write 4/4 when nobody sets a time signature")
     elif notated:
         lines.append(f"{indent}the file says {notated}, but the playing points to {result.time_signature}")
+    if len(result.segments) > 1:
+        lines.append(f"{indent}the metre changes: " + "; ".join(
+            f"{_label(s.time_signature, s.grouping)} from {s.start_s:.2f} s" for s in result.segments))
     alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))
