@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed bench-batch install clean-venv check-boost figures
+.PHONY: demo test bench bench-full bench-speed bench-batch bench-check install clean-venv check-boost figures
 
 install: $(STAMP)
 
@@ -45,3 +45,6 @@ bench-speed: $(STAMP)
 
 bench-batch: $(STAMP)
 	$(BIN)/python bench/batch_bench.py
+
+bench-check: $(STAMP)
+	$(BIN)/python bench/check_bench.py

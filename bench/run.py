@@ -291,6 +291,9 @@ def main() -> int:
 
     speed_md, speed_figures = speed_table()
     speed_md += "\n\n" + per_piece_speed(rows, speed_figures)
+    from check_bench import run_section as check_section  # metertop check and metre changes, on their own sample
+
+    check_md, check_figures = check_section(jobs=args.jobs)
     elapsed = time.time() - t0
     stamp = dt.date.today().isoformat()
     command = "make bench-full" if args.full else "make bench"
@@ -329,6 +332,7 @@ by a model fitted on the persistence features alone (`bench/models/persistence_o
 ### Confusion, metertop, drum grooves
 
 {confusion_md(rows, 'groove', 'metertop')}
+{check_md}
 ## The corpus
 
 Tunes left out of every figure are counted here (free metre, other metres, irregular bars, ...):
@@ -345,7 +349,7 @@ Tunes left out of every figure are counted here (free metre, other metres, irreg
     OUT.mkdir(parents=True, exist_ok=True)
     result_path = OUT / f"results-{stamp}{'-full' if args.full else ''}.json"
     result_path.write_text(json.dumps({"date": stamp, "command": command, "info": info, "figures": figures,
-                                       "speed": speed_figures, "rows": rows}, indent=1, default=float))
+                                       "speed": speed_figures, "check": check_figures, "rows": rows}, indent=1, default=float))
     print(md_tables)
     print(f"wrote {args.out} and {result_path} in {elapsed:.0f} s", file=sys.stderr)
     return 0

@@ -12,6 +12,7 @@ array of onset times in seconds, and returns a frozen
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from dataclasses import dataclass, field
 
@@ -22,10 +23,11 @@ from .errors import InputError
 from .events import merge_events
 from .load import NoteTable, load_notes, notes_from_onsets
 from .result import Level, MetreResult, Reading, Segment, make_result
+from .segments import SegmentReading, SegmentSettings, find_segments
 from .tempo import PulseTrack, TempoSettings, track_pulse
-from .tree import MetricTree, TreeSettings, build_tree
+from .tree import MetricTree, TreeSettings, build_tree, promote
 
-__all__ = ["Settings", "Analysis", "analyse", "analyse_detailed", "MIN_EVENTS"]
+__all__ = ["Settings", "Analysis", "analyse", "analyse_detailed", "choose_reading", "MIN_EVENTS"]
 
 # Two bars of the slowest common metre need at least this many events.
 MIN_EVENTS = 8
@@ -42,6 +44,7 @@ class Settings:
     tempo: TempoSettings = field(default_factory=TempoSettings)
     tree: TreeSettings = field(default_factory=TreeSettings)
     n_alternatives: int = 5
+    segments: SegmentSettings = field(default_factory=SegmentSettings)
 
 
 @dataclass(frozen=True)
@@ -130,8 +133,65 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     pulse_s = pulse.median_period_s
     tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums,
                       period_salience=pulse.salience_profile())
-    result = _assemble(notes, t, pulse, tree, settings)
+    segments = find_segments(tau, w, pulse_s, tree, settings.tree, settings.engine, events.has_drums, settings.segments)
+    result = _assemble(notes, t, pulse, tree, settings, segments)
     return Analysis(result, t, w, pulse, tree, notes, settings)
+
+
+def choose_reading(analysis: Analysis, *, rank: int | None = None, time_signature: str | None = None) -> Analysis:
+    """The analysis again, with another reading chosen.
+
+    Parameters
+    ----------
+    analysis : Analysis
+        From :func:`analyse_detailed`.
+    rank : int, optional
+        The reading ranked ``rank`` among the result's ``alternatives``
+        (1 is the proposal itself).
+    time_signature : str, optional
+        The best-scored reading of this notated metre (see
+        :mod:`metertop.notation`): its phase and bars are fitted to the
+        playing, along the same tempo curve.
+
+    Returns
+    -------
+    Analysis
+        Its result describes the chosen reading; ``alternatives`` rank it
+        first and keep the others in their order; ``confidence`` is the
+        chosen reading's probability under the model.
+
+    Raises
+    ------
+    InputError
+        For a rank beyond the alternatives, a time signature metertop cannot
+        read, or one no reading of which fits the piece's tempo and length.
+    """
+    from .notation import notated_metre
+
+    if (rank is None) == (time_signature is None):
+        raise ValueError("give exactly one of rank and time_signature")
+    tree, pulse = analysis.tree, analysis.pulse
+    settings = analysis.settings or Settings()
+    if rank is not None:
+        from_pulses = float(pulse.warp([analysis.times_s[0] - 0.05])[0])
+        indices = _reading_indices(tree, pulse, from_pulses, settings.n_alternatives)
+        if not 1 <= rank <= len(indices):
+            raise InputError(f"there is no reading {rank}: this piece has {len(indices)} (see 'alternatives')")
+        index = indices[rank - 1]
+    else:
+        metre = notated_metre(time_signature)
+        index = next((k for k, c in enumerate(tree.candidates) if metre.matches(c.beats_per_bar, c.division, c.grouping)), None)
+        if index is None:
+            raise InputError(f"no reading in {metre.text} fits this piece: its bars would fall outside the tempo range "
+                             f"(beats of {settings.tree.min_beat_s:g}-{settings.tree.max_beat_s:g} s, bars up to {settings.tree.max_bar_s:g} s) "
+                             "or be too long for the piece")
+    tau = pulse.warp(analysis.times_s)
+    chosen = promote(tree, index, tau, analysis.weights, pulse.median_period_s, settings.tree, engine=settings.engine)
+    notes = analysis.notes if analysis.notes is not None else notes_from_onsets(analysis.times_s)
+    result = _assemble(notes, analysis.times_s, pulse, chosen, settings)
+    how = f"reading {rank}" if rank is not None else f"time signature {time_signature}"
+    result = dataclasses.replace(result, extra={**result.extra, "chosen": how})
+    return Analysis(result, analysis.times_s, analysis.weights, pulse, chosen, analysis.notes, settings)
 
 
 def _grid_times(pulse: PulseTrack, start_pulses: float, step_pulses: np.ndarray, bar_pulses: float, t0: float, t1: float, tol_s: float) -> np.ndarray:
@@ -151,16 +211,40 @@ def _first_at(pulse: PulseTrack, start_pulses: float, length_pulses: float, from
     return float(pulse.unwarp([start_pulses + k * length_pulses])[0])
 
 
-def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings) -> MetreResult:
+def _segment_grids(pulse: PulseTrack, segments: list[SegmentReading], t0: float, t1: float, tol: float) -> tuple[np.ndarray, np.ndarray, list[Segment]]:
+    """Downbeats and beats of each segment's reading within its span, and the segments as results."""
+    downbeats, beats, out = [], [], []
+    for k, seg in enumerate(segments):
+        c = seg.reading
+        lo = t0 if k == 0 else float(pulse.unwarp([seg.start_pulses])[0])
+        hi = t1 if k == len(segments) - 1 else float(pulse.unwarp([seg.end_pulses])[0])
+        d = _grid_times(pulse, c.downbeat_pulses, np.array([0.0]), float(c.bar), t0, t1, tol)
+        b = _grid_times(pulse, c.downbeat_pulses, c.beat_offsets(), float(c.bar), t0, t1, tol)
+        a = lo - (tol if k == 0 else tol / 10)
+        z = hi + tol if k == len(segments) - 1 else hi - tol / 10
+        d, b = d[(d >= a) & (d < z)], b[(b >= a) & (b < z)]
+        downbeats.append(d), beats.append(b)
+        bar_s = float(np.median(np.diff(d))) if len(d) > 1 else float(c.bar) * pulse.median_period_s
+        out.append(Segment(lo, hi, c.time_signature, c.beats_per_bar, c.division if c.grouping is None else None,
+                           list(c.grouping) if c.grouping else None, bar_s, float(d[0]) if len(d) else None, float(seg.log_odds)))
+    return np.concatenate(downbeats), np.concatenate(beats), out
+
+
+def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTree, settings: Settings,
+              segments: list[SegmentReading] | None = None) -> MetreResult:
     best = tree.best
     t0, t1 = float(t[0]), float(t[-1])
     tol = 0.05
     bar_p = float(best.bar)
-    downbeats = _grid_times(pulse, best.downbeat_pulses, np.array([0.0]), bar_p, t0, t1, tol)
-    beats = _grid_times(pulse, best.downbeat_pulses, best.beat_offsets(), bar_p, t0, t1, tol)
+    if segments is None or len(segments) < 2:
+        segments = [SegmentReading(float(pulse.warp([t0])[0]), float(pulse.warp([t1])[0]), best, 0.0)]
+    downbeats, beats, segment_results = _segment_grids(pulse, segments, t0, t1, tol)
     pulse_s = pulse.median_period_s
-    bar_s = float(np.median(np.diff(downbeats))) if len(downbeats) > 1 else bar_p * pulse_s
-    beat_s = float(np.median(np.diff(beats))) if len(beats) > 1 else float(best.beat) * pulse_s
+    # The main reading's own grid gives its bar and beat, also where other segments interrupt it.
+    main_d = _grid_times(pulse, best.downbeat_pulses, np.array([0.0]), bar_p, t0, t1, tol)
+    main_b = _grid_times(pulse, best.downbeat_pulses, best.beat_offsets(), bar_p, t0, t1, tol)
+    bar_s = float(np.median(np.diff(main_d))) if len(main_d) > 1 else bar_p * pulse_s
+    beat_s = float(np.median(np.diff(main_b))) if len(main_b) > 1 else float(best.beat) * pulse_s
     from_pulses = float(pulse.warp([t0 - tol])[0])
     levels = []
     for name in ("subdivision", "beat", "bar", "hypermeasure"):
@@ -186,7 +270,7 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
         downbeats_s=downbeats,
         beats_s=beats,
         alternatives=alternatives,
-        segments=[Segment(t0, t1, best.time_signature)],
+        segments=segment_results,
         n_events=len(t),
         duration_s=t1 - t0,
         notated_time_signature=notated,
@@ -194,16 +278,28 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
     )
 
 
-def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[Reading]:
-    """Distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
+def _reading_indices(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[int]:
+    """Candidates that are distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
     out, seen = [], set()
-    for cand, prob in zip(tree.candidates, tree.probabilities):
-        bar = float(cand.bar)
-        phase_s = _first_at(pulse, cand.downbeat_pulses, bar, from_pulses)
+    for k, cand in enumerate(tree.candidates):
+        phase_s = _first_at(pulse, cand.downbeat_pulses, float(cand.bar), from_pulses)
         key = (cand.time_signature, cand.grouping, round(phase_s, 2))
         if key in seen:
             continue
         seen.add(key)
+        out.append(k)
+        if len(out) >= limit:
+            break
+    return out
+
+
+def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit: int) -> list[Reading]:
+    """Distinct readings (notation and first downbeat at or after ``from_pulses``), best first."""
+    out = []
+    for k in _reading_indices(tree, pulse, from_pulses, limit):
+        cand, prob = tree.candidates[k], tree.probabilities[k]
+        bar = float(cand.bar)
+        phase_s = _first_at(pulse, cand.downbeat_pulses, bar, from_pulses)
         out.append(Reading(
             rank=len(out) + 1,
             time_signature=cand.time_signature,
@@ -215,6 +311,4 @@ def _alternatives(tree: MetricTree, pulse: PulseTrack, from_pulses: float, limit
             score=cand.score,
             probability=float(prob),
         ))
-        if len(out) >= limit:
-            break
     return out

@@ -50,7 +50,10 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     lines.append(f"{indent}first downbeat {first}; {len(result.downbeats_s)} bars, {len(result.beats_s)} beats "
                  f"over {result.duration_s:.1f} s ({result.n_events} events)")
     notated = result.notated_time_signature
-    if notated == result.time_signature:
+    chosen = result.extra.get("chosen")
+    if chosen:
+        lines.append(f"{indent}chosen: {chosen}" + (f" (the file says {notated})" if notated else ""))
+    elif notated == result.time_signature:
         lines.append(f"{indent}the file's own time signature {notated} matches the proposal")
     elif notated == "4/4" and result.source == "midi":
         lines.append(f"{indent}the file says 4/4, but the playing points to {result.time_signature}; "
@@ -58,6 +61,9 @@ def summary(result: MetreResult, name: str | None = None) -> str:
     elif notated:
         heard = "the notes point" if result.source == "score" else "the playing points"
         lines.append(f"{indent}the file says {notated}, but {heard} to {result.time_signature}")
+    if len(result.segments) > 1:
+        lines.append(f"{indent}the metre changes: " + "; ".join(
+            f"{_label(s.time_signature, s.grouping)} from {s.start_s:.2f} s" for s in result.segments))
     alts = [f"{_label(a.time_signature, a.grouping)} ({a.probability:.2f}, downbeat {a.phase_s:.2f} s)" for a in result.alternatives[1:4]]
     if alts:
         lines.append(f"{indent}alternatives: " + "; ".join(alts))

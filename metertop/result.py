@@ -85,11 +85,34 @@ class Reading(_AsDict):
 
 @dataclass(frozen=True)
 class Segment(_AsDict):
-    """A stretch of the piece with one reading."""
+    """A stretch of the piece with one reading.
+
+    Attributes
+    ----------
+    start_s, end_s : float
+        The stretch, in seconds; a segment after a metre change starts on its
+        first downbeat.
+    time_signature : str
+    beats_per_bar, beat_division, grouping
+        The segment's reading, as in :class:`MetreResult`.
+    bar_s : float or None
+        Median bar duration in the segment.
+    first_downbeat_s : float or None
+        The segment's first downbeat.
+    evidence : float or None
+        Log-odds of the segment's reading against the piece's main reading,
+        over the segment (0 for the main reading's own segments).
+    """
 
     start_s: float
     end_s: float
     time_signature: str
+    beats_per_bar: int | None = None
+    beat_division: int | None = None
+    grouping: list[int] | None = None
+    bar_s: float | None = None
+    first_downbeat_s: float | None = None
+    evidence: float | None = None
 
 
 @dataclass(frozen=True)

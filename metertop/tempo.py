@@ -37,7 +37,7 @@ import numpy as np
 from .errors import InputError
 from .scan import circular_bumps, refined_phases
 
-__all__ = ["PulseTrack", "TempoSettings", "track_pulse", "pulse_salience"]
+__all__ = ["PulseTrack", "TempoSettings", "track_pulse", "pulse_salience", "viterbi_path"]
 
 
 @dataclass(frozen=True)
@@ -168,6 +168,11 @@ def pulse_salience(times_s, weights, centres_s, half_width_s: float, periods_s, 
 
 def _viterbi(log_emit: np.ndarray, log_periods: np.ndarray, sd: float) -> np.ndarray:
     trans = -0.5 * ((log_periods[:, None] - log_periods[None, :]) / sd) ** 2  # (from, to)
+    return viterbi_path(log_emit, trans)
+
+
+def viterbi_path(log_emit: np.ndarray, trans: np.ndarray) -> np.ndarray:
+    """The most likely state path: ``log_emit`` (steps, states), ``trans`` (from, to) log-weights of moving between states."""
     n, j = log_emit.shape
     score = log_emit[0].copy()
     back = np.zeros((n, j), dtype=np.int64)

@@ -64,7 +64,7 @@ import numpy as np
 from .model import ReadingModel, default_model
 from .scan import WrappedCycle, wrap_cycle
 
-__all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "time_signature_of"]
+__all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "promote", "time_signature_of"]
 
 F = Fraction
 # Additive groupings of an irregular bar, in tatums (common practice).
@@ -477,7 +477,8 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
 
 
 def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
-               drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None) -> MetricTree:
+               drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None,
+               lattice: nx.MultiDiGraph | None = None) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -495,11 +496,13 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         The pulse scan's salience profile over candidate periods in seconds
         (:meth:`metertop.tempo.PulseTrack.salience_profile`), for the
         ``beat_salience`` feature; without it the feature is 0.
+    lattice : networkx.MultiDiGraph, optional
+        The readings to score (:func:`cycle_lattice`); all by default.
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
     scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
-    lattice = cycle_lattice()
+    lattice = cycle_lattice() if lattice is None else lattice
     span_pulses = scan.span
     cands: list[Candidate] = []
     for lo, hi, data in lattice.edges(data=True):
@@ -531,6 +534,28 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     best = cands[0]
     hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
     graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
+    return MetricTree(cands, p, graph, scan.cache, hyper)
+
+
+def promote(tree: MetricTree, index: int, positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(),
+            engine: str = "dionysus") -> MetricTree:
+    """The same scored readings with the reading at ``index`` chosen (first), and its metric tree.
+
+    The scores and probabilities stay those of the model, so a level's
+    confidence still says how much of the probability agrees with it; only
+    the chosen reading, and with it the tree and the hypermeasure, change.
+    ``positions``, ``weights`` and ``pulse_s`` must be those the tree was
+    built from.
+    """
+    if not 0 <= index < len(tree.candidates):
+        raise IndexError(f"no reading {index}")
+    order = [index] + [k for k in range(len(tree.candidates)) if k != index]
+    cands = [tree.candidates[k] for k in order]
+    p = np.asarray(tree.probabilities)[order]
+    scan = _Scanner(np.asarray(positions, dtype=np.float64), np.asarray(weights, dtype=np.float64), settings, engine, pulse_s,
+                    cache=dict(tree.cycles))
+    hyper, hyper_score, hyper_start = _hypermeasure(scan, cands[0], settings)
+    graph = _tree_graph(cands[0], cands, p, scan, hyper, hyper_score, hyper_start)
     return MetricTree(cands, p, graph, scan.cache, hyper)
 
 

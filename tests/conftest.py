@@ -145,14 +145,22 @@ def render_tune(tune: Tune, quarter_s: float = 0.5, *, repeats: int = 2, seed: i
         while b <= last_q + 1e-9:
             pos.append(b), dur.append(tune.bar_quarters), pitch.append(tune.bass_pitch), track.append(1)
             b += tune.bar_quarters
+    notes, to_s = _perform(pos, dur, pitch, track, total_q, tune.beat_quarters, quarter_s, rng, jitter_s, drift_sd, drift_beats, start_s)
+    beat_q = np.arange(tune.pickup_quarters % tune.beat_quarters, last_q + 1e-9, tune.beat_quarters)
+    down_q = np.arange(tune.pickup_quarters, last_q + 1e-9, tune.bar_quarters)
+    return Rendering(tune, notes, to_s(beat_q), to_s(down_q), tune.bar_quarters * quarter_s, tune.beat_quarters * quarter_s)
+
+
+def _perform(pos, dur, pitch, track, total_q, beat_q, quarter_s, rng, jitter_s, drift_sd, drift_beats, start_s):
+    """Notes at score positions (quarters) played on a drifting clock with jitter; and the clock (quarters to seconds)."""
     pos = np.asarray(pos, dtype=float)
     dur = np.asarray(dur, dtype=float)
 
     # The time map: seconds at each beat boundary, linear within a beat.
-    n_beats = int(np.ceil(total_q / tune.beat_quarters)) + 2
+    n_beats = int(np.ceil(total_q / beat_q)) + 2
     dev = drift_curve(n_beats, drift_sd, drift_beats, rng)
-    knots_q = np.arange(n_beats + 1) * tune.beat_quarters
-    knots_s = start_s + np.concatenate([[0.0], np.cumsum(tune.beat_quarters * quarter_s * np.exp(dev))])
+    knots_q = np.arange(n_beats + 1) * beat_q
+    knots_s = start_s + np.concatenate([[0.0], np.cumsum(beat_q * quarter_s * np.exp(dev))])
 
     def to_s(x):
         return np.interp(x, knots_q, knots_s)
@@ -177,9 +185,44 @@ def render_tune(tune: Tune, quarter_s: float = 0.5, *, repeats: int = 2, seed: i
         track=np.asarray(track, dtype=np.int64)[order],
         source="midi",
     )
-    beat_q = np.arange(tune.pickup_quarters % tune.beat_quarters, last_q + 1e-9, tune.beat_quarters)
-    down_q = np.arange(tune.pickup_quarters, last_q + 1e-9, tune.bar_quarters)
-    return Rendering(tune, notes, to_s(beat_q), to_s(down_q), tune.bar_quarters * quarter_s, tune.beat_quarters * quarter_s)
+    return notes, to_s
+
+
+# Amazing Grace in whole bars, for pieces that change metre: the pickup is
+# left out and the last note held for a full bar.
+AMAZING_GRACE_BARS = Tune(
+    "amazing_grace_bars", AMAZING_GRACE.source + "; pickup left out, last note held a full bar", "3/4", 3, 2, 3.0, 1.0, 0.0, G2,
+    AMAZING_GRACE.notes[1:-1] + ((3, G4),),
+)
+
+
+@dataclass(frozen=True)
+class SectionRendering:
+    """Tunes played one after the other at one quarter-note tempo: a piece whose metre changes at each new tune."""
+
+    notes: NoteTable
+    time_signatures: tuple
+    starts_s: np.ndarray  # the first downbeat of each section
+    downbeats_s: np.ndarray
+
+
+def render_sections(tunes, quarter_s: float = 0.5, *, seed: int = 0, jitter_s: float = 0.012, drift_sd: float = 0.0,
+                    drift_beats: float = 8.0, start_s: float = 0.5) -> SectionRendering:
+    """Play whole-bar tunes (no pickups) back to back, each with its bass on its own downbeats (see render_tune)."""
+    rng = np.random.default_rng(seed)
+    pos, dur, pitch, track, down_q, starts_q = [], [], [], [], [], []
+    q = 0.0
+    for tune in tunes:
+        assert tune.pickup_quarters == 0 and tune.length_quarters % tune.bar_quarters == 0, tune.name
+        starts_q.append(q)
+        for d, p in tune.notes:
+            pos.append(q), dur.append(d), pitch.append(p), track.append(0)
+            q += d
+        for b in np.arange(starts_q[-1], q - 1e-9, tune.bar_quarters):
+            pos.append(b), dur.append(tune.bar_quarters), pitch.append(tune.bass_pitch), track.append(1)
+            down_q.append(b)
+    notes, to_s = _perform(pos, dur, pitch, track, q, 0.5, quarter_s, rng, jitter_s, drift_sd, drift_beats, start_s)
+    return SectionRendering(notes, tuple(t.time_signature for t in tunes), to_s(np.asarray(starts_q)), to_s(np.asarray(down_q)))
 
 
 def write_midi(path, tracks, *, time_signature=(4, 4), tempo_bpm: float = 120.0) -> Path:
@@ -228,3 +271,38 @@ def grace_rendering() -> Rendering:
 @pytest.fixture(scope="session")
 def boat_rendering() -> Rendering:
     return render_tune(ROW_YOUR_BOAT, 0.3, seed=13)
+
+
+def essen_training_tune(source_file: str, index: int):
+    """One tune of the Essen folksong collection as music21 ships it (an open dataset on PyPI), read with the
+    benchmark's corpus reader (bench/essen.py); only tunes from training files of the fixed split."""
+    import sys
+
+    bench = str(REPO / "bench")
+    if bench not in sys.path:
+        sys.path.insert(0, bench)
+    import essen  # needs music21: the bench extra, which make test installs
+    from common import ScoreTune
+
+    assert source_file in essen.TRAIN_FILES
+    text = (essen.essen_dir() / f"{source_file}.abc").read_text(encoding="utf-8")
+    record = essen.tune_record(essen.split_abc_text(text)[index - 1], source_file, index)
+    record.pop("restored_bars", None)
+    return ScoreTune(**record)
+
+
+def played_essen_tune(source_file: str, index: int, seed: int = 1):
+    """An Essen training tune rendered as the benchmark plays it (bench/render.py: drift, jitter, downbeat accents)."""
+    tune = essen_training_tune(source_file, index)
+    from render import render  # bench/ is on the path now
+
+    return render(tune, "played", seed=seed)
+
+
+# "Die Todesbraut" (Essen collection, ballad20, tune 100): a 7/8 ballad from a training file.
+SEVEN_EIGHT = ("ballad20", 100)
+
+
+@pytest.fixture(scope="session")
+def seven_eight_played():
+    return played_essen_tune(*SEVEN_EIGHT, seed=1)

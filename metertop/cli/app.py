@@ -54,62 +54,76 @@ def _root(
 @app.command("analyse")
 def analyse_cmd(
     files: List[Path] = typer.Argument(..., help="MIDI files (.mid), onset lists (.csv, .tsv, .txt, .json) or scores (.musicxml, .xml, .mxl, .abc, .krn)."),
-    json_out: bool = typer.Option(False, "--json", help="Print one JSON line per file instead of a summary."),
+    json_out: bool = typer.Option(False, "--json", help="Print one JSON line per file (per tune for scores) instead of a summary."),
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
     engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure to this file (.png, .svg or .pdf); one FILE only."),
+    time_signature: Optional[str] = typer.Option(None, "--time-signature", "-s", help="Fit this time signature (e.g. 7/8) instead of proposing one; warns when the playing contradicts it."),
+    reading: Optional[int] = typer.Option(None, "--reading", help="Report and write the Nth of the alternative readings (1 is the proposal)."),
+    write_midi: Optional[Path] = typer.Option(None, "--write-midi", help="Write the notes with the reading's tempo map and time signatures as a Standard MIDI File."),
+    beats: Optional[Path] = typer.Option(None, "--beats", help="Write every beat's time, bar and beat position as a TSV file."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure of the proposal to this file (.png, .svg or .pdf); one FILE only."),
     tune: Optional[List[int]] = typer.Option(None, "--tune", help="Score files: analyse only tune N of an ABC or kern file holding several (repeatable; from 1)."),
-    write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the proposed metre."),
-    reading: int = typer.Option(1, "--reading", help="With --write-score: write the Nth reading of the alternatives (1 is the proposal)."),
-    force: bool = typer.Option(False, "--force", help="Replace an existing output file."),
+    write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the chosen reading."),
+    force: bool = typer.Option(False, "--force", help="Replace output files that exist."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
     from ..export import to_json_line
-    from ..pipeline import analyse
     from ..report import summary
+    from ..scores import is_score_path
+    from .score_files import analyse_score_file, check_score_options
+    from .writeback import analyse_one, check_options
 
     settings = _settings(merge_ms, engine)
+    scores = [is_score_path(f) for f in files]
+    if any(scores) or write_score is not None or tune:
+        problem = check_score_options(list(files), write_score, reading if reading is not None else 1, tune)
+        if problem:
+            _fail(problem)
     if plot is not None:
         from .plot import draw_and_save, prepare_plot
 
         if len(files) != 1:
             _fail(f"--plot draws one file, got {len(files)}; use 'metertop plot FILE -o OUT' for each")
+        if reading is not None or time_signature is not None:
+            _fail("--plot draws the proposal; it does not combine with --reading or --time-signature")
         prepare_plot(plot, files[0], force)
-    from .score_files import analyse_score_file, check_score_options
-    from ..scores import is_score_path
-
-    problem = check_score_options(list(files), write_score, reading, tune)
-    if problem:
-        _fail(problem)
+    try:
+        check_options([f for f, sc in zip(files, scores) if not sc], time_signature, reading if not all(scores) else None,
+                      write_midi, beats, force)
+    except MetertopError as exc:
+        _fail(str(exc))
     failed = 0
     for i, path in enumerate(files):
-        if is_score_path(path):
+        if scores[i]:
             failed += analyse_score_file(path, json_out=json_out, settings=settings, tunes=list(tune) if tune else None,
-                                         write_score=write_score, reading=reading, force=force, label=len(files) > 1, first=i == 0)
+                                         write_score=write_score, reading=reading if reading is not None else 1, force=force,
+                                         label=len(files) > 1, first=i == 0)
             continue
         if tune:
             typer.echo(f"metertop: error: {path}: --tune applies to score files (ABC, kern, MusicXML)", err=True)
             failed += 1
             continue
         try:
+            result, extra, lines = analyse_one(path, list(track) if track else None, settings, time_signature, reading, write_midi,
+                                               beats, force)
             if plot is not None:
-                result = draw_and_save(path, plot, force=force, tracks=track, settings=settings).result
-            else:
-                result = analyse(path, tracks=list(track) if track else None, settings=settings)
+                draw_and_save(path, plot, force=force, tracks=track, settings=settings)
+                lines.append(f"figure written to {plot}")
         except MetertopError as exc:
             message = str(exc)
             typer.echo(f"metertop: error: {message if str(path) in message else f'{path}: {message}'}", err=True)
             failed += 1
             continue
         if json_out:
-            typer.echo(to_json_line(result))
+            typer.echo(to_json_line(result, **extra))
+            for line in lines:
+                if line.startswith(("figure written", "wrote ")):
+                    typer.echo(line, err=True)
         else:
             if i:
                 typer.echo("")
-            typer.echo(summary(result, name=str(path) if len(files) > 1 else None))
-        if plot is not None:
-            typer.echo(f"figure written to {plot}", err=json_out)
+            typer.echo("\n".join([summary(result, name=str(path) if len(files) > 1 else None)] + lines))
     if failed:
         raise typer.Exit(2)
 
@@ -129,3 +143,4 @@ def tracks_cmd(file: Path = typer.Argument(..., help="A MIDI file.")) -> None:
 
 from . import plot as _plot  # noqa: E402,F401
 from . import batch as _batch  # noqa: E402,F401
+from . import check as _check  # noqa: E402,F401

@@ -1,0 +1,74 @@
+"""``metertop check``: does a notated time signature fit the playing?
+
+Exit codes: 0 consistent, 1 inconsistent, 3 ambiguous, 2 bad input.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+
+from ..errors import MetertopError
+from .app import _fail, app
+
+_SHOW_BARS = 12
+
+
+@app.command("check")
+def check_cmd(
+    file: Path = typer.Argument(..., help="A MIDI file (.mid) or an onset list (.csv, .tsv, .txt, .json)."),
+    time_signature: Optional[str] = typer.Option(
+        None, "--time-signature", "-s",
+        help="The notated time signature to check, e.g. 3/4, 6/8, 7/8 or 2+2+3/8. Default: the file's own time-signature events."),
+    json_out: bool = typer.Option(False, "--json", help="Print the verdict and its evidence as one JSON line."),
+    track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable). Default: all."),
+    merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event."),
+) -> None:
+    """Check a notated time signature against the playing: consistent (exit 0), inconsistent (1) or ambiguous (3)."""
+    from .._version import __version__
+    from ..check import check_file
+    from ..pipeline import Settings
+
+    if not merge_ms >= 0 or merge_ms > 1000:
+        _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
+    try:
+        report = check_file(file, time_signature, tracks=list(track) if track else None,
+                            settings=Settings(merge_window_s=merge_ms / 1000.0))
+    except MetertopError as exc:
+        message = str(exc)
+        _fail(message if str(file) in message else f"{file}: {message}")
+    verdict = report.verdict
+    if json_out:
+        data = {"metertop_version": __version__, "path": str(file), **verdict.to_dict(),
+                "segments": [s.to_dict() for s in report.result.segments]}
+        typer.echo(json.dumps(data, separators=(",", ":"), allow_nan=False))
+    else:
+        typer.echo(_text(verdict))
+    raise typer.Exit(verdict.exit_code)
+
+
+def _text(v) -> str:
+    src = "from the file" if v.notated_from == "file" else "given"
+    lines = [f"{v.verdict}: {v.message}"]
+
+    def row(name, r):
+        label = f"{r.time_signature} ({'+'.join(map(str, r.grouping))})" if r.grouping else r.time_signature
+        return (f"  {name:<8s}{label:<14s} score {r.score:6.2f}   probability {r.probability:.3f}   "
+                f"bar {r.bar_s:.3f} s   first downbeat {r.first_downbeat_s:.2f} s")
+
+    lines.append(row(f"notated", v.notated) + f"   ({src})")
+    lines.append(row("best", v.best))
+    if v.disagreeing_bars:
+        shown = ", ".join(f"{b.bar} ({b.start_s:.2f} s)" for b in v.disagreeing_bars[:_SHOW_BARS])
+        more = f" and {len(v.disagreeing_bars) - _SHOW_BARS} more" if len(v.disagreeing_bars) > _SHOW_BARS else ""
+        lines.append(f"  bars whose bar line has no downbeat in the playing ({len(v.disagreeing_bars)} of {v.n_bars}): {shown}{more}")
+    else:
+        lines.append(f"  every one of the {v.n_bars} notated bar lines falls on a downbeat of the playing")
+    if v.suggestion:
+        lines.append(f"  suggestion: {v.suggestion}")
+    for note in v.notes:
+        lines.append(f"  note: {note}")
+    return "\n".join(lines)

@@ -1,0 +1,88 @@
+"""The options of ``metertop analyse`` that choose a reading or write it back.
+
+``--time-signature`` fits a given metre, ``--reading N`` takes the Nth
+alternative, ``--write-midi`` and ``--beats`` write the chosen reading out
+(see :mod:`metertop.tempomap`).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import InputError
+
+__all__ = ["check_options", "analyse_one"]
+
+
+def check_options(files: list[Path], time_signature: str | None, reading: int | None, write_midi: Path | None,
+                  beats: Path | None, force: bool) -> None:
+    """Reject option combinations that cannot work, before any analysis (raises InputError)."""
+    from ..notation import notated_metre
+    from ..outputs import check_target
+
+    if time_signature is not None and reading is not None:
+        raise InputError("give either --time-signature or --reading, not both")
+    if reading is not None and reading < 1:
+        raise InputError(f"--reading counts from 1, got {reading}")
+    if time_signature is not None:
+        notated_metre(time_signature)
+    outputs = [p for p in (write_midi, beats) if p is not None]
+    if outputs and len(files) != 1:
+        raise InputError("--write-midi and --beats write one file's reading: give exactly one FILE")
+    if len(outputs) == 2 and Path(outputs[0]).resolve() == Path(outputs[1]).resolve():
+        raise InputError("--write-midi and --beats name the same file")
+    for out in outputs:
+        check_target(out, inputs=files, force=force)
+
+
+def analyse_one(path: Path, tracks, settings, time_signature: str | None, reading: int | None, write_midi: Path | None,
+                beats: Path | None, force: bool):
+    """Analyse one file with the chosen reading and write its outputs.
+
+    Returns
+    -------
+    result : MetreResult
+    extra : dict
+        Keys added to the JSON line: ``check`` (the verdict on a given time
+        signature) and ``written`` (the files written).
+    lines : list of str
+        Warnings and notes for the text summary.
+    """
+    import numpy as np
+
+    from ..check import check_notated
+    from ..outputs import atomic_write, check_target
+    from ..pipeline import analyse_detailed, choose_reading
+    from ..tempomap import bar_grid, beats_table, write_tempo_map
+
+    analysis = analyse_detailed(path, tracks=tracks, settings=settings)
+    extra, lines = {}, []
+    if time_signature is not None:
+        verdict = check_notated(analysis, time_signature)
+        analysis = choose_reading(analysis, time_signature=time_signature)
+        extra["check"] = verdict.to_dict()
+        if verdict.verdict == "inconsistent":
+            lines.append(f"warning: the playing contradicts {verdict.time_signature}: {verdict.message}")
+        elif verdict.verdict == "ambiguous":
+            lines.append(f"note: {verdict.message}")
+    elif reading is not None:
+        analysis = choose_reading(analysis, rank=reading)
+    result = analysis.result
+    grid, written = None, []
+    if write_midi is not None:
+        grid = write_tempo_map(result, path, write_midi, force=force)
+        written.append(str(write_midi))
+        lines.append(f"wrote {write_midi}: {int(grid.bar[-1])} bars, {len(grid.times_s)} beat lines, "
+                     f"{grid.ticks_per_quarter} ticks per quarter")
+    if beats is not None:
+        if grid is None:
+            notes = analysis.notes
+            end = float(np.nanmax(notes.onsets_s + np.nan_to_num(notes.durations_s))) if notes is not None else result.duration_s
+            grid = bar_grid(result, end_s=end)
+        target = check_target(beats, inputs=[path], force=force)
+        atomic_write(target, beats_table(grid))
+        written.append(str(beats))
+        lines.append(f"wrote {beats}: {int(np.sum(grid.detected))} beats")
+    if written:
+        extra["written"] = written
+    return result, extra, lines
