@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed install clean-venv check-boost
+.PHONY: demo test bench bench-full bench-speed bench-robust install clean-venv check-boost
 
 install: $(STAMP)
 
@@ -38,3 +38,6 @@ bench-full: $(STAMP)
 
 bench-speed: $(STAMP)
 	$(BIN)/python bench/speed.py
+
+bench-robust: $(STAMP)
+	$(BIN)/python bench/robust.py
