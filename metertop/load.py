@@ -286,7 +286,9 @@ def _load_midi(path: str, tracks: list[int] | None) -> NoteTable:
     t = np.asarray(cols[0], dtype=np.float64)
     if np.any(~np.isfinite(t)) or np.any(t > _MAX_TIME_S):
         raise InputError(f"{path}: note times out of range (tempo events may be corrupt)")
-    sigs = tuple(TimeSignatureEvent(float(ts.time), int(ts.numerator), int(ts.denominator)) for ts in pm.time_signature_changes)
+    # A denominator beyond 64 is no notation anyone uses: a damaged event, left out.
+    sigs = tuple(TimeSignatureEvent(float(ts.time), int(ts.numerator), int(ts.denominator))
+                 for ts in pm.time_signature_changes if ts.denominator <= 64)
     names = tuple(inst.name or f"program {inst.program}" for inst in insts)
     return _finish(*cols, time_signatures=sigs, source="midi", track_names=names)
 

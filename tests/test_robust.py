@@ -37,8 +37,8 @@ N_ANALYSED = 40
 
 def test_fuzzed_files_give_one_line_errors_or_results(tmp_path):
     """500 damaged MIDI files and onset lists: the library raises only InputError, and the CLI (`tracks` on every MIDI
-    file, `analyse --json` on every file the loader refuses and on 40 it reads) exits 0 with strict JSON or 2 with one
-    error line, never a traceback or a warning."""
+    file, `analyse` with and without --json on every file the loader refuses and on 40 it reads) exits 0 (with strict
+    JSON) or 2 with one error line, never a traceback or a warning."""
     crashes, seen = [], {"refused": 0, "analysed": 0}
     analysed = 0
     for i in range(N_FUZZ):
@@ -58,7 +58,8 @@ def test_fuzzed_files_give_one_line_errors_or_results(tmp_path):
             continue
         commands = [["tracks", str(path)]] if h.suffix == ".mid" else []
         if not loads or analysed < N_ANALYSED:
-            commands.append(["analyse", "--json", str(path)])
+            # Alternate the JSON and the text summary, so that both ways of printing meet odd results.
+            commands.append(["analyse", "--json", str(path)] if i % 2 else ["analyse", str(path)])
             analysed += loads
         for args in commands:
             outcome = run_cli(args)
@@ -218,3 +219,17 @@ def test_oversized_file_refused_unread(tmp_path):
         load_notes(path)
     outcome = run_cli(["analyse", str(path)])
     assert outcome.verdict == "refused" and "32 MB" in outcome.detail
+
+
+def test_time_signature_no_notation_uses_is_left_out(tmp_path):
+    """A time-signature event with a denominator of 2**200 (a damaged byte) is left out rather than reported as the file's
+    metre; the notes are still analysed."""
+    from hostile import _encode, meta, midi_seeds
+
+    seed = midi_seeds()[0].copy()  # its conductor track: name, tempo, 3/4, key
+    seed.tracks[0][2][1] = meta(0x58, bytes([13, 200, 24, 8]))
+    path = tmp_path / "odd_metre.mid"
+    path.write_bytes(_encode(seed))
+    assert load_notes(path).time_signatures == ()
+    outcome = run_cli(["analyse", str(path)])
+    assert outcome.verdict == "analysed"
