@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed bench-batch bench-check install clean-venv check-boost figures
+.PHONY: demo test bench bench-full bench-speed bench-batch bench-check bench-robust install clean-venv check-boost figures
 
 install: $(STAMP)
 
@@ -48,3 +48,6 @@ bench-batch: $(STAMP)
 
 bench-check: $(STAMP)
 	$(BIN)/python bench/check_bench.py
+
+bench-robust: $(STAMP)
+	$(BIN)/python bench/robust.py

@@ -133,6 +133,9 @@ def dynamic_accent(events: EventStream) -> np.ndarray:
     known = np.isfinite(v)
     if known.sum() < 2:
         return np.full(len(v), 0.5)
+    top = np.max(np.abs(v[known]))
+    if top > 0:
+        v = v / top  # the z-score ignores scale; this keeps huge user weights from overflowing
     med = np.median(v[known])
     # The standard deviation stands in where most values are equal (MAD 0).
     scale = max(1.4826 * np.median(np.abs(v[known] - med)), np.std(v[known]), 1e-9)

@@ -17,6 +17,12 @@ Onset lists may be:
   ``weight`` and ``pitch``.
 
 Exact duplicates (same time and pitch) are dropped on loading.
+
+Every problem with the input is an :class:`~metertop.errors.InputError`
+whose message names the file and what is wrong; the size limits of
+:mod:`metertop.limits` are checked before parsing, and a MIDI file's
+structure is checked by :func:`metertop.smf.survey_smf` before pretty_midi
+reads it.
 """
 
 from __future__ import annotations
@@ -26,11 +32,15 @@ import io
 import json
 import math
 import os
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .errors import InputError
+from .limits import MAX_TIME_S as _MAX_TIME_S
+from .limits import LimitError, check_file_size, check_note_count
+from .smf import survey_smf
 
 __all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "check_input_file", "list_tracks", "notes_from_onsets", "MIDI_SUFFIXES", "ONSET_SUFFIXES"]
 
@@ -38,8 +48,6 @@ MIDI_SUFFIXES = (".mid", ".midi", ".smf", ".kar")
 ONSET_SUFFIXES = (".csv", ".tsv", ".txt", ".json")
 # Scores are read by metertop.scores, one analysis per tune.
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".abc", ".krn")
-# Far beyond any real take (about 28 hours); guards against garbage values.
-_MAX_TIME_S = 1.0e5
 
 
 @dataclass(frozen=True)
@@ -130,7 +138,8 @@ def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
     weights : array_like of float, optional
         Accent of each onset (any positive scale).
     pitches : array_like of int, optional
-        MIDI pitch of each onset, used to tell duplicates from chords.
+        MIDI note number (0-127) of each onset, used to tell duplicates
+        from chords; -1 where unknown.
 
     Examples
     --------
@@ -146,10 +155,21 @@ def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
         raise InputError(f"got {n} onsets but {len(w)} weights")
     if np.any(~np.isfinite(w) & ~np.isnan(w)) or np.any(w < 0):
         raise InputError("weights must be finite and not negative")
-    p = np.full(n, -1, dtype=np.int64) if pitches is None else np.asarray(pitches).astype(np.int64).ravel()
+    p = np.full(n, -1, dtype=np.int64) if pitches is None else _check_pitches(pitches)
     if len(p) != n:
         raise InputError(f"got {n} onsets but {len(p)} pitches")
     return _finish(t, np.full(n, np.nan), p, np.full(n, np.nan), w, np.zeros(n, bool), np.zeros(n, np.int64))
+
+
+def _check_pitches(pitches) -> np.ndarray:
+    try:
+        p = np.asarray(pitches, dtype=np.float64).ravel()
+    except (TypeError, ValueError, OverflowError):
+        raise InputError("pitches must be MIDI note numbers (0-127)") from None
+    bad = ~(np.isfinite(p) & (p == np.round(p)) & (p >= -1) & (p <= 127))
+    if np.any(bad):
+        raise InputError(f"pitch {p[bad][0]:g} is not a MIDI note number (0-127)")
+    return p.astype(np.int64)
 
 
 def _check_times(t: np.ndarray, what: str) -> None:
@@ -168,8 +188,13 @@ def check_input_file(path: str | os.PathLike) -> str:
         raise InputError(f"{path}: no such file")
     if os.path.isdir(path):
         raise InputError(f"{path}: is a folder, not a file")
-    if os.path.getsize(path) == 0:
+    size = os.path.getsize(path)
+    if size == 0:
         raise InputError(f"{path}: file is empty")
+    try:
+        check_file_size(size)
+    except LimitError as exc:
+        raise LimitError(f"{path}: {exc}") from None
     return path
 
 
@@ -210,13 +235,35 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
 
 
 def _open_midi(path: str):
+    """Check the file's structure and size, then parse it with pretty_midi."""
     import pretty_midi  # deferred: pulls in mido, costs start-up time
+    from mido.midifiles.meta import KeySignatureError
 
+    data = _read_bytes(path)
     try:
-        return pretty_midi.PrettyMIDI(path)
-    except Exception as exc:  # pretty_midi/mido raise many types on corrupt input
+        survey_smf(data)
+    except LimitError as exc:
+        raise LimitError(f"{path}: {exc}") from None
+    except InputError as exc:
+        raise InputError(f"{path}: not a readable Standard MIDI File: {exc}") from None
+    try:
+        with warnings.catch_warnings():
+            # Tempo or metre events off the first track: pretty_midi warns and
+            # reads the first track's; metertop only compares the metre.
+            warnings.simplefilter("ignore", RuntimeWarning)
+            return pretty_midi.PrettyMIDI(io.BytesIO(data))
+    # What mido and pretty_midi raise on damage that survey_smf lets through.
+    except (EOFError, OSError, ValueError, IndexError, KeyError, ZeroDivisionError, OverflowError, KeySignatureError) as exc:
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise InputError(f"{path}: not a readable Standard MIDI File ({msg})") from None
+
+
+def _read_bytes(path: str) -> bytes:
+    try:
+        with open(path, "rb") as fh:
+            return fh.read()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
 
 
 def list_tracks(path: str | os.PathLike) -> list[tuple[int, str, bool, int]]:
@@ -250,7 +297,9 @@ def _load_midi(path: str, tracks: list[int] | None) -> NoteTable:
     t = np.asarray(cols[0], dtype=np.float64)
     if np.any(~np.isfinite(t)) or np.any(t > _MAX_TIME_S):
         raise InputError(f"{path}: note times out of range (tempo events may be corrupt)")
-    sigs = tuple(TimeSignatureEvent(float(ts.time), int(ts.numerator), int(ts.denominator)) for ts in pm.time_signature_changes)
+    # A denominator beyond 64 is no notation anyone uses: a damaged event, left out.
+    sigs = tuple(TimeSignatureEvent(float(ts.time), int(ts.numerator), int(ts.denominator))
+                 for ts in pm.time_signature_changes if ts.denominator <= 64)
     names = tuple(inst.name or f"program {inst.program}" for inst in insts)
     return _finish(*cols, time_signatures=sigs, source="midi", track_names=names)
 
@@ -259,21 +308,23 @@ def _parse_float(text: str, where: str) -> float:
     try:
         value = float(text)
     except ValueError:
-        raise InputError(f"{where}: '{text}' is not a number") from None
+        raise InputError(f"{where}: '{_short(text)}' is not a number") from None
     if math.isnan(value):
         raise InputError(f"{where}: value is NaN")
     return value
 
 
 def _load_onset_list(path: str) -> NoteTable:
+    raw = _read_bytes(path)
+    # Spreadsheets save "Unicode text" as UTF-16 with a byte-order mark.
+    encoding = "UTF-16" if raw[:2] in (b"\xff\xfe", b"\xfe\xff") else "UTF-8"
     try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-        text = raw.decode("utf-8-sig")
-    except OSError as exc:
-        raise InputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not UTF-8 text; onset lists must be UTF-8 CSV, TSV or JSON") from None
+        text = raw.decode("utf-16" if encoding == "UTF-16" else "utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{path}: not {encoding} text (byte {exc.start}); onset lists must be UTF-8 "
+                         "(or UTF-16 with a byte-order mark) CSV, TSV or JSON") from None
+    if "\x00" in text:
+        raise InputError(f"{path}: holds NUL characters (UTF-16 text without a byte-order mark?); save it as UTF-8")
     stripped = text.strip()
     if not stripped:
         raise InputError(f"{path}: file holds no onsets")
@@ -287,10 +338,15 @@ def _parse_json(path: str, text: str) -> NoteTable:
         data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise InputError(f"{path}: invalid JSON ({exc.msg} at line {exc.lineno})") from None
+    except ValueError:  # an integer of thousands of digits
+        raise InputError(f"{path}: invalid JSON (a number too long to read)") from None
+    except RecursionError:
+        raise InputError(f"{path}: invalid JSON (nested too deeply)") from None
     if isinstance(data, dict) and "onsets" in data:
         data = data["onsets"]
     if not isinstance(data, list) or not data:
         raise InputError(f"{path}: expected a non-empty JSON array of onset times or of objects with 'time_s'")
+    _check_rows(path, len(data))
     times, weights, pitches = [], [], []
     for i, item in enumerate(data):
         where = f"{path}: item {i}"
@@ -299,7 +355,7 @@ def _parse_json(path: str, text: str) -> NoteTable:
                 raise InputError(f"{where}: object has no 'time_s'")
             times.append(_json_number(item["time_s"], where))
             weights.append(_json_number(item["weight"], where) if item.get("weight") is not None else np.nan)
-            pitches.append(int(_json_number(item["pitch"], where)) if item.get("pitch") is not None else -1)
+            pitches.append(_pitch(_json_number(item["pitch"], where), where) if item.get("pitch") is not None else -1)
         else:
             times.append(_json_number(item, where))
             weights.append(np.nan)
@@ -309,24 +365,52 @@ def _parse_json(path: str, text: str) -> NoteTable:
 
 def _json_number(value, where: str) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{where}: {value!r} is not a number")
+        raise InputError(f"{where}: {_short(repr(value))} is not a number")
     if isinstance(value, float) and math.isnan(value):
         raise InputError(f"{where}: value is NaN")
-    return float(value)
+    try:
+        return float(value)
+    except OverflowError:
+        raise InputError(f"{where}: a number too large to read") from None
+
+
+def _pitch(value: float, where: str) -> int:
+    if not (math.isfinite(value) and value == round(value) and 0 <= value <= 127):
+        raise InputError(f"{where}: pitch {_short(f'{value:g}')} is not a MIDI note number (0-127)")
+    return int(value)
+
+
+def _short(text: str, limit: int = 40) -> str:
+    """``text`` cut to ``limit`` characters, control characters shown as '?'."""
+    text = "".join(c if c.isprintable() else "?" for c in text)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _check_rows(path: str, n_rows: int) -> None:
+    try:
+        check_note_count(n_rows)
+    except LimitError as exc:
+        raise LimitError(f"{path}: {exc}") from None
 
 
 def _parse_table(path: str, text: str) -> NoteTable:
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    if not lines:
+        raise InputError(f"{path}: file holds no onsets")
+    _check_rows(path, len(lines) - 1)
     first = lines[0]
     delimiter = "\t" if "\t" in first else ("," if "," in first else (";" if ";" in first else None))
-    rows = list(csv.reader(io.StringIO("\n".join(lines)), delimiter=delimiter)) if delimiter else [ln.split() for ln in lines]
+    try:
+        rows = list(csv.reader(io.StringIO("\n".join(lines)), delimiter=delimiter)) if delimiter else [ln.split() for ln in lines]
+    except csv.Error as exc:
+        raise InputError(f"{path}: not a readable table ({exc})") from None
     rows = [[c.strip() for c in r] for r in rows]
     header = rows[0]
     has_header = any(c and not _looks_numeric(c) for c in header)
     if has_header:
         names = [c.lower() for c in header]
         if "time_s" not in names:
-            raise InputError(f"{path}: header has no 'time_s' column (found: {', '.join(header)})")
+            raise InputError(f"{path}: header has no 'time_s' column (found: {_short(', '.join(header), 80)})")
         ti = names.index("time_s")
         wi = names.index("weight") if "weight" in names else None
         pi = names.index("pitch") if "pitch" in names else None
@@ -341,11 +425,13 @@ def _parse_table(path: str, text: str) -> NoteTable:
     times, weights, pitches = [], [], []
     for k, row in enumerate(body):
         where = f"{path}: line {k + first_line}"
+        if len(row) == 1 and len(header) > 1 and any(sep in row[0] for sep in ",;\t|"):
+            raise InputError(f"{where}: '{_short(row[0])}' uses another separator than the header line")
         if len(row) <= ti or row[ti] == "":
             raise InputError(f"{where}: missing time_s value")
         times.append(_parse_float(row[ti], f"{where}, time_s"))
         weights.append(_parse_float(row[wi], f"{where}, weight") if wi is not None and len(row) > wi and row[wi] != "" else np.nan)
-        pitches.append(int(_parse_float(row[pi], f"{where}, pitch")) if pi is not None and len(row) > pi and row[pi] != "" else -1)
+        pitches.append(_pitch(_parse_float(row[pi], f"{where}, pitch"), where) if pi is not None and len(row) > pi and row[pi] != "" else -1)
     return _onsets_or_error(path, times, weights, pitches)
 
 

@@ -86,6 +86,7 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     os.close(fd)
     tmp_path = Path(tmp)
     try:
+        _give_usual_mode(tmp_path, path)
         yield tmp_path
         with open(tmp_path, "rb+") as handle:
             os.fsync(handle.fileno())
@@ -97,6 +98,17 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     except BaseException:
         tmp_path.unlink(missing_ok=True)
         raise
+
+
+def _give_usual_mode(tmp: Path, target: Path) -> None:
+    """mkstemp makes a private file (0600); give it the target's mode, or what a new file would get."""
+    try:
+        mode = target.stat().st_mode & 0o7777
+    except OSError:
+        umask = os.umask(0)
+        os.umask(umask)
+        mode = 0o666 & ~umask
+    os.chmod(tmp, mode)
 
 
 def atomic_write(target: str | os.PathLike, data: bytes | str) -> Path:

@@ -21,6 +21,7 @@ import numpy as np
 from .accents import AccentMix, event_weights
 from .errors import InputError
 from .events import merge_events
+from .limits import check_note_count, check_span
 from .load import NoteTable, load_notes, notes_from_onsets
 from .result import Level, MetreResult, Reading, Segment, make_result
 from .segments import SegmentReading, SegmentSettings, find_segments
@@ -120,11 +121,13 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     values this way (:mod:`metertop.scores`).
     """
     notes = _as_notes(source, tracks)
+    check_note_count(len(notes))
     events = merge_events(notes, settings.merge_window_s)
     t = events.times_s
     if len(t) < MIN_EVENTS or t[-1] - t[0] < MIN_SPAN_S:
         raise InputError(f"too few onsets for any metre: {len(t)} events over {t[-1] - t[0]:.2f} s "
                          f"(need at least {MIN_EVENTS} events over {MIN_SPAN_S} s)")
+    check_span(float(t[0]), float(t[-1]))
     w = event_weights(events, settings.accents)
     pulse = track_pulse(t, w, settings.tempo)
     if pulse_grid is not None:
