@@ -64,12 +64,6 @@ def check_target(target: str | os.PathLike, *, inputs: Iterable[str | os.PathLik
     return path
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
 @contextlib.contextmanager
 def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``target``; rename it over ``target`` on success.
@@ -90,7 +84,6 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
         yield tmp_path
         with open(tmp_path, "rb+") as handle:
             os.fsync(handle.fileno())
-        os.chmod(tmp_path, 0o666 & ~_umask())  # mkstemp makes 0600; outputs follow the umask like any file
         os.replace(tmp_path, path)
     except OSError as exc:
         tmp_path.unlink(missing_ok=True)

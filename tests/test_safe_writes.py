@@ -33,6 +33,11 @@ COMMANDS: dict[str, tuple[list[str], set[str]]] = {
     "analyse --json": (["analyse", "--json", "{input}"], {"midi", "csv", "tsv", "json"}),
     "analyse --track": (["analyse", "--track", "0", "{input}"], {"midi"}),
     "tracks": (["tracks", "{input}"], {"midi"}),
+    "check": (["check", "--time-signature", "3/4", "{input}"], {"midi", "csv"}),
+    "analyse --write-midi --beats": (["analyse", "{input}", "--write-midi", "{out}/grid.mid", "--beats", "{out}/beats.tsv"], {"midi", "csv"}),
+    "analyse --time-signature": (["analyse", "--time-signature", "3/4", "{input}"], {"midi"}),
+    "plot": (["plot", "{input}", "-o", "{out}/figure.png"], {"midi", "csv"}),
+    "batch": (["batch", "{input}", "-o", "{out}/results.jsonl"], {"midi", "csv"}),
 }
 
 
