@@ -256,9 +256,8 @@ def check_notated(analysis, time_signature: str, *, notated_from: str = "given",
     if foreign and verdict == "consistent":
         verdict = "inconsistent"  # one notated metre, but the playing changes metre
     message, suggestion = _words(metre, verdict, rel, notated, best_rs, disagreeing, n_bars, result, foreign, lines, t0)
-    notes = []
     return Verdict(verdict, EXIT_CODES[verdict], metre.text, notated_from, notated, best_rs, rel, n_bars, disagreeing, suggestion,
-                   message, notes)
+                   message, [])
 
 
 def _temperature(analysis) -> float:
@@ -289,13 +288,11 @@ def _words(metre: NotatedMetre, verdict: str, rel: str, notated: ReadingScore, b
     scores = f"{ts} scores {notated.score:.2f}, the best reading {best_label} {best.score:.2f}"
     off = f"; {len(disagreeing)} of {n_bars} notated bar lines fall where the playing has no downbeat" if disagreeing else ""
     if verdict == "consistent":
-        if len(result.segments) > 1:
-            return f"the playing fits {ts} ({scores}){off}", None
         return f"the playing fits {ts} ({scores}){off}", None
     suggestion = f"{best_label}, first downbeat at {best.first_downbeat_s:.2f} s"
     if len(result.segments) > 1:
         suggestion = _segments_words(result.segments, lines, t0)
-    if foreign and rel in ("same", "nested") or (foreign and notated.log_odds <= LIMITS.tie):
+    if foreign and (rel in ("same", "nested") or notated.log_odds <= LIMITS.tie):
         where = "; ".join(f"{_label(f.time_signature, f.grouping)} from {f.start_s:.2f} s to {f.end_s:.2f} s "
                           f"(bars {_bar_number(lines, f.start_s, t0)}-{_bar_number(lines, f.end_s - 1e-3, t0)})" for f in foreign)
         return f"{ts} fits the playing except where it changes metre: {where}{off}", suggestion
