@@ -243,3 +243,39 @@ def test_matplotlib_not_imported_without_plot():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, env=env)
     assert out.returncode == 0, out.stderr
     assert out.stdout.strip() == "[]"
+
+
+def test_check_plot_draws_the_notated_grid_beside_the_proposal(tmp_path, monkeypatch):
+    """`metertop check FILE --plot OUT` puts the file's own (sequencer default 4/4) grid in panel 4 beside the proposed lines.
+
+    The notated bar lines drawn must be pretty_midi's ``get_downbeats()`` of
+    the file (the reference reader of its tempo map and time signatures)
+    that fall inside the strip.
+    """
+    import pretty_midi
+
+    import metertop.plot as mplot
+    from metertop.cli import app
+
+    drawn = {}
+    real_save = mplot.save_figure
+
+    def keep(fig, path, **kw):
+        drawn["fig"] = fig
+        return real_save(fig, path, **kw)
+
+    monkeypatch.setattr(mplot, "save_figure", keep)
+    src = DEMO_DIR / "tidewater_ferry_jig_6-8.mid"
+    out = tmp_path / "check.png"
+    res = CliRunner().invoke(app, ["check", str(src), "--plot", str(out)], prog_name="metertop")
+    assert res.exit_code == 1, res.output  # the file's 4/4 is the sequencer's default over a 6/8 jig
+    assert out.exists() and out.stat().st_size > 10_000
+    strip = drawn["fig"].axes[3]
+    lines = [c for c in strip.collections if c.get_gid() == "notated-downbeats"]
+    assert len(lines) == 1
+    xs = sorted(seg[0][0] for seg in lines[0].get_segments())
+    lo, hi = strip.get_xlim()
+    ref = pretty_midi.PrettyMIDI(str(src)).get_downbeats()
+    np.testing.assert_allclose(xs, ref[(ref >= lo) & (ref <= hi)], atol=1e-9)
+    again = CliRunner().invoke(app, ["check", str(src), "--plot", str(out)], prog_name="metertop")
+    assert again.exit_code == 2 and "exists" in again.stderr

@@ -26,6 +26,8 @@ def check_cmd(
     json_out: bool = typer.Option(False, "--json", help="Print the verdict and its evidence as one JSON line."),
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable). Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure, with the notated grid beside the proposed one (.png, .svg or .pdf)."),
+    force: bool = typer.Option(False, "--force", help="Replace the --plot file if it exists."),
 ) -> None:
     """Check a notated time signature against the playing: consistent (exit 0), inconsistent (1) or ambiguous (3)."""
     from .._version import __version__
@@ -34,6 +36,10 @@ def check_cmd(
 
     if not merge_ms >= 0 or merge_ms > 1000:
         _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
+    if plot is not None:
+        from .plot import prepare_plot
+
+        prepare_plot(plot, file, force)
     try:
         report = check_file(file, time_signature, tracks=list(track) if track else None,
                             settings=Settings(merge_window_s=merge_ms / 1000.0))
@@ -41,6 +47,12 @@ def check_cmd(
         message = str(exc)
         _fail(message if str(file) in message else f"{file}: {message}")
     verdict = report.verdict
+    if plot is not None:
+        try:
+            _draw_with_notated_grid(file, report, plot, force)
+        except MetertopError as exc:
+            _fail(str(exc))
+        typer.echo(f"figure written to {plot}", err=True)
     if json_out:
         data = {"metertop_version": __version__, "path": str(file), **verdict.to_dict(),
                 "segments": [s.to_dict() for s in report.result.segments]}
@@ -48,6 +60,30 @@ def check_cmd(
     else:
         typer.echo(_text(verdict))
     raise typer.Exit(verdict.exit_code)
+
+
+def _draw_with_notated_grid(file: Path, report, out: Path, force: bool) -> None:
+    """The figure of the analysis, with the notated grid in panel 4.
+
+    The notated grid is the file's own bars and beats (its tempo map and
+    time signatures) when the time signature came from the file, and the
+    given metre fitted to the playing otherwise.
+    """
+    from ..pipeline import choose_reading
+    from ..plot import NotatedGrid, analysis_figure, save_figure
+
+    verdict = report.verdict
+    label = f"notated {verdict.time_signature}"
+    if verdict.notated_from == "file":
+        import pretty_midi
+
+        pm = pretty_midi.PrettyMIDI(str(file))
+        grid = NotatedGrid(pm.get_downbeats(), pm.get_beats(), label=f"{label} (the file's grid)")
+    else:
+        chosen = choose_reading(report.analysis, time_signature=verdict.time_signature).result
+        grid = NotatedGrid(chosen.downbeats_s, chosen.beats_s, label=f"{label} (fitted)")
+    fig = analysis_figure(report.analysis, title=file.name, notated=grid)
+    save_figure(fig, out, inputs=[file], force=force)
 
 
 def _text(v) -> str:
