@@ -759,13 +759,11 @@ def analyse_tune(tune: ScoreTune, *, settings: Settings = Settings()) -> ScoreAn
 def notated_verdict(tune: ScoreTune, analysis: Analysis):
     """The input's own time signature checked against the proposal, as ``metertop check`` does; None without one.
 
-    MERGE STEP (for the lead): this calls ``metertop.check.check_notated``
-    (branch issue-5), which is not on this branch, so here it always returns
-    None and ``notated_check`` is absent from the output. ``analysis`` is
-    the pipeline's analysis in score time laid out at
+    ``analysis`` is the pipeline's analysis in score time laid out at
     :func:`analysis_seconds_per_quarter` seconds a quarter (from the first
-    note): check that ``check_notated`` reads the notated time signature in
-    those units before relying on it.
+    note); :func:`metertop.check.check_notated` reads time signatures by
+    shape (beats and division), so the layout does not matter to it. The
+    verdict goes to the output as ``notated_check``.
     """
     if tune.notated_time_signature is None:
         return None

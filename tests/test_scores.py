@@ -534,3 +534,22 @@ def test_barred_score_needs_a_parsed_score():
     analysis = analyse_tune(tune)
     with pytest.raises(InputError, match="no score to write back"):
         barred_score(tune, analysis.reading(1))
+
+
+def test_a_score_with_its_own_metre_is_checked_as_check_does():
+    """A barred Essen training tune (kinder0, tune 1, notated 2/4; music21's corpus) carries `notated_check`, the verdict of metertop.check on its own time signature."""
+    import os
+
+    import music21
+
+    from metertop.check import check_notated
+    from metertop.scores import analyse_score
+
+    path = os.path.join(os.path.dirname(music21.__file__), "corpus", "essenFolksong", "kinder0.abc")
+    (sa,) = analyse_score(path, tunes=[1])
+    d = sa.result.to_dict()
+    assert d["notated_time_signature"] == "2/4"
+    check = d["notated_check"]
+    assert check["time_signature"] == "2/4"
+    assert check["verdict"] in ("consistent", "ambiguous", "inconsistent")
+    assert check == check_notated(sa.analysis, "2/4").to_dict()
