@@ -22,9 +22,10 @@ bench/render.py and written as MIDI files to ``bench/cache/batch-midi-<n>/``
    worker process and of two (one thread each), started before the clock
    starts, as an existing cluster would be.
 
-Figures are files per second beside the CPU time per file, and the
-efficiency: one process's CPU time per file over the batch's, measured in
-the same run, because the machine is shared and noisy.
+Figures are files per second beside the CPU time per file of all the
+run's processes, which the machine's other jobs disturb less than the wall
+time, and the batch worker's cost beside a single process's on the same
+files, measured in the same run.
 """
 
 from __future__ import annotations
@@ -216,56 +217,48 @@ def cluster_batch(folder: Path, n_files: int, workers: int) -> dict:
 
 def section(figures: dict, n_files: int, elapsed_s: float) -> str:
     per = figures["per_file"]
-    serial_cpu = per["load_cpu_s"] + per["analyse_cpu_s"]
     start = figures["startup"]
+    work = figures["worker"]
+    load = figures["load"]
+    local = figures["local2"]
+    same = figures.get("same_lines", {})
     rows = []
     for name, key in (("local, 2 processes (`--jobs 2`)", "local2"), ("Dask LocalCluster, 1 worker", "dask1"),
                       ("Dask LocalCluster, 2 workers", "dask2")):
         run = figures.get(key)
-        if run is None:
-            continue
-        cpu_per_file = run["cpu_s"] / n_files
-        rows.append(f"| {name} | {run['wall_s']:.1f} s | **{run['files_per_s']:.2f}** | {cpu_per_file * 1000:.0f} ms | "
-                    f"{serial_cpu / cpu_per_file:.2f} | {run['failed']} |")
-    local = figures["local2"]
-    same = figures.get("same_lines", {})
-    load = figures["load"]
-    work = figures["worker"]
+        if run is not None:
+            rows.append(f"| {name} | {run['wall_s']:.1f} s | **{run['files_per_s']:.2f}** | {run['cpu_s'] / n_files * 1000:.0f} ms | {run['failed']} |")
+    busy = max(load["start"], load["end"]) > 2.5
     ratio = work["forked_worker_cpu_s"] / work["in_process_cpu_s"]
-    machinery = (f"In a forked worker a file costs {ratio:.2f} times the CPU time it costs in one process"
+    machinery = (f"In a forked batch worker a file costs {ratio:.2f} times the CPU time it costs in one process"
                  + (": the pool, the pickled tasks and the synced lines add nothing measurable." if abs(ratio - 1) < 0.1 else "."))
+    local_cpu = local["cpu_s"] / n_files
     return f"""## Batch throughput
 
 Measured {dt.date.today().isoformat()} with `make bench-batch` (`python bench/batch_bench.py`) in {elapsed_s / 60:.1f} minutes on this
-shared 2-core machine (load average {load['start']:.1f} at the start, {load['end']:.1f} at the end: other jobs were running).
+shared 2-core machine (load average {load['start']:.1f} at the start, {load['end']:.1f} at the end{': other jobs were running' if busy else ''}).
 {n_files} Essen evaluation tunes, rendered deadpan by bench/render.py and written as MIDI files, are analysed by `metertop batch`
 into a fresh results file. Wall time runs from the command to its exit, start-up included; the Dask clusters were started
 before the clock, as an existing cluster would be. CPU time counts every process of the run (for Dask, the cluster's
-workers too). *Efficiency* is the CPU time of loading and analysing one file in a single process, measured in the same
-run on {per['files']} of the files, over the CPU time per file of the batch: 1.0 means the batch machinery costs nothing.
+worker processes too), so it says what the run costs whatever else the machine is doing.
 
-| run | wall time | files/s | CPU per file | efficiency | error lines |
-|---|---|---|---|---|---|
+| run | wall time | files/s | CPU per file, all processes | error lines |
+|---|---|---|---|---|
 {chr(10).join(rows)}
 
-Target: {TARGET_FILES_PER_S:.0f} files/s on 2 local processes; measured {local['files_per_s']:.2f}. On two free cores, loading and
-analysing alone allow at most {2 / serial_cpu:.1f} files/s (2 / the CPU time per file below), and this run's CPU time per file of the
-local batch at most {2 / (local['cpu_s'] / n_files):.1f}. Where the time goes, per file:
+Target: {TARGET_FILES_PER_S:.0f} files/s on 2 local processes; measured {local['files_per_s']:.2f}. The local run used {local_cpu * 1000:.0f} ms of CPU per
+file, so two free cores would give it at most {2 / local_cpu:.1f} files/s. Where the time goes:
 
-| part | CPU time |
+| per file | CPU time |
 |---|---|
-| metertop's analysis, mean over {per['files']} files (median {per['analyse_cpu_median_s'] * 1000:.0f} ms) | {per['analyse_cpu_s'] * 1000:.0f} ms |
+| metertop's analysis, mean over {per['files']} files spread over the sample (median {per['analyse_cpu_median_s'] * 1000:.0f} ms) | {per['analyse_cpu_s'] * 1000:.0f} ms |
 | pretty_midi's load of the MIDI file | {per['load_cpu_s'] * 1000:.1f} ms |
-| the same {work['files']} files analysed in this process / in one forked batch worker, alternately (best of 2) | {work['in_process_cpu_s'] * 1000:.0f} ms / {work['forked_worker_cpu_s'] * 1000:.0f} ms |
+| {work['files']} other files, analysed in this process / in one forked batch worker, alternately (best of 2) | {work['in_process_cpu_s'] * 1000:.0f} ms / {work['forked_worker_cpu_s'] * 1000:.0f} ms |
+| one durable results line (write and fdatasync), wall time | {start['durable_line_s'] * 1000:.2f} ms |
 
-| once per run | wall time |
-|---|---|
-| a fresh interpreter importing metertop, pretty_midi and dionysus (forked workers inherit it) | {start['import_s'] * 1000:.0f} ms |
-| one durable results line (write and fdatasync), per file | {start['durable_line_s'] * 1000:.2f} ms |
-
-{machinery} Two processes sharing two busy cores can each take more CPU time per file than one process
-alone; on this machine that, not the batch, is what an efficiency below 1 measures for the local run. The Dask runs pay,
-in addition, for the cluster's own processes (nanny, worker event loop, heartbeats) for as long as the run lasts.
+{machinery} A fresh interpreter takes {start['import_s'] * 1000:.0f} ms to import metertop, pretty_midi and dionysus; the batch pays
+it once, since its workers are forked with everything imported. The Dask runs also pay for the cluster's own processes
+(nanny, worker event loop, heartbeats) for as long as the run lasts, and ship each file's bytes with its task.
 
 Lines identical to the local run's (every key): {same.get('dask1', '-')} of {n_files} with 1 worker, {same.get('dask2', '-')} of {n_files} with 2 workers.
 """
