@@ -134,9 +134,10 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
         pulse = pulse_grid(pulse, t, w)
     tau = pulse.warp(t)
     pulse_s = pulse.median_period_s
-    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums,
-                      period_salience=pulse.salience_profile())
-    segments = find_segments(tau, w, pulse_s, tree, settings.tree, settings.engine, events.has_drums, settings.segments)
+    salience = pulse.salience_profile()
+    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums, period_salience=salience)
+    segments = find_segments(tau, w, pulse_s, tree, settings.tree, settings.engine, events.has_drums, settings.segments,
+                             period_salience=salience)
     result = _assemble(notes, t, pulse, tree, settings, segments)
     return Analysis(result, t, w, pulse, tree, notes, settings)
 

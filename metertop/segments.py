@@ -55,7 +55,6 @@ import networkx as nx
 from .tempo import viterbi_path
 from .tree import ADDITIVE, Candidate, MetricTree, TreeSettings, _margin, _Scanner, build_tree
 
-_DEBUG = []
 __all__ = ["SegmentSettings", "SegmentReading", "find_segments"]
 
 
@@ -121,12 +120,13 @@ def _score_of(cands: list[Candidate], state: Candidate, tol: float) -> float | N
     return best
 
 
-def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice) -> MetricTree | None:
+def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience=None) -> MetricTree | None:
     sel = (x >= lo) & (x < hi)
     if sel.sum() < 6:
         return None
     try:
-        return build_tree(x[sel], w[sel], pulse_s, tree_settings, engine=engine, drums=drums, lattice=lattice)
+        return build_tree(x[sel], w[sel], pulse_s, tree_settings, engine=engine, drums=drums, lattice=lattice,
+                          period_salience=period_salience)
     except ValueError:
         return None  # no reading fits so short a span
 
@@ -245,7 +245,8 @@ def _compatible(a: Candidate, b: Candidate) -> bool:
 
 
 def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_settings: TreeSettings = TreeSettings(),
-                  engine: str = "dionysus", drums: bool = False, settings: SegmentSettings = SegmentSettings()) -> list[SegmentReading]:
+                  engine: str = "dionysus", drums: bool = False, settings: SegmentSettings = SegmentSettings(),
+                  period_salience: tuple[np.ndarray, np.ndarray] | None = None) -> list[SegmentReading]:
     """Split the piece where its metre changes (see the module notes).
 
     Parameters
@@ -259,6 +260,10 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     tree_settings, engine, drums
         As for :func:`metertop.tree.build_tree`.
     settings : SegmentSettings
+    period_salience : optional
+        The pulse scan's salience profile, as given to the whole piece's
+        tree (:func:`metertop.tree.build_tree`), so that windows are scored
+        with the same features.
 
     Returns
     -------
@@ -292,13 +297,12 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     wstarts = np.arange(first, x1 - width / 2, hop)
     windows = []
     for lo in wstarts:
-        t = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice)
+        t = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice, period_salience)
         windows.append(t.candidates if t is not None else [])
     states = [main]
     for cands in windows:
         if cands and not any(_compatible(cands[0], st) for st in states):
             states.append(cands[0])
-    _DEBUG.clear(); _DEBUG.extend(states)
     if len(states) == 1:
         return whole
     # 3. Viterbi over the windows.
@@ -328,7 +332,8 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
         evidence = 0.0
         if st is not main:
             long_enough = end - start >= settings.min_bars * float(st.bar) - 0.5 * _unit(st)
-            odds = _log_odds(x, w, start, end + 0.5 * _unit(st), st, main, pulse_s, tree_settings, engine, drums, lattice, temperature) \
+            odds = _log_odds(x, w, start, end + 0.5 * _unit(st), st, main, pulse_s, tree_settings, engine, drums, lattice, temperature,
+                                period_salience) \
                 if long_enough else None
             if odds is None or odds < settings.min_log_odds:
                 st = out[-1].reading if out else main
@@ -341,9 +346,10 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     return out if len(out) > 1 else whole
 
 
-def _log_odds(x, w, lo, hi, state, other, pulse_s, tree_settings, engine, drums, lattice, temperature) -> float | None:
+def _log_odds(x, w, lo, hi, state, other, pulse_s, tree_settings, engine, drums, lattice, temperature,
+              period_salience=None) -> float | None:
     """How much better ``state`` explains [lo, hi) than ``other``, scored by the model on that span alone."""
-    t = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice)
+    t = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience)
     if t is None:
         return None
     own = _score_of(t.candidates, state, 0.25 * _unit(state))

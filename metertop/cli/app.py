@@ -81,7 +81,7 @@ def analyse_cmd(
         if problem:
             _fail(problem)
     if plot is not None:
-        from .plot import draw_and_save, prepare_plot
+        from .plot import prepare_plot, save_analysis_figure
 
         if len(files) != 1:
             _fail(f"--plot draws one file, got {len(files)}; use 'metertop plot FILE -o OUT' for each")
@@ -105,10 +105,11 @@ def analyse_cmd(
             failed += 1
             continue
         try:
-            result, extra, lines = analyse_one(path, list(track) if track else None, settings, time_signature, reading, write_midi,
-                                               beats, force)
+            analysis, extra, lines = analyse_one(path, list(track) if track else None, settings, time_signature, reading, write_midi,
+                                                 beats, force)
+            result = analysis.result
             if plot is not None:
-                draw_and_save(path, plot, force=force, tracks=track, settings=settings)
+                save_analysis_figure(analysis, path, plot, force=force)
                 lines.append(f"figure written to {plot}")
         except MetertopError as exc:
             message = str(exc)

@@ -70,7 +70,8 @@ def _draw_with_notated_grid(file: Path, report, out: Path, force: bool) -> None:
     given metre fitted to the playing otherwise.
     """
     from ..pipeline import choose_reading
-    from ..plot import NotatedGrid, analysis_figure, save_figure
+    from ..plot import NotatedGrid
+    from .plot import save_analysis_figure
 
     verdict = report.verdict
     label = f"notated {verdict.time_signature}"
@@ -82,8 +83,7 @@ def _draw_with_notated_grid(file: Path, report, out: Path, force: bool) -> None:
     else:
         chosen = choose_reading(report.analysis, time_signature=verdict.time_signature).result
         grid = NotatedGrid(chosen.downbeats_s, chosen.beats_s, label=f"{label} (fitted)")
-    fig = analysis_figure(report.analysis, title=file.name, notated=grid)
-    save_figure(fig, out, inputs=[file], force=force)
+    save_analysis_figure(report.analysis, file, out, force=force, notated=grid)
 
 
 def _text(v) -> str:

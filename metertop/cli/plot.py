@@ -22,14 +22,20 @@ def prepare_plot(out: Path, source: Path, force: bool) -> None:
         _fail(str(exc))
 
 
+def save_analysis_figure(analysis, source: Path, out: Path, *, force: bool, notated=None) -> None:
+    """Draw the figure of an analysis of ``source`` (with a notated grid, if given) to ``out``."""
+    from ..plot import analysis_figure, save_figure
+
+    fig = analysis_figure(analysis, title=Path(source).name, notated=notated)
+    save_figure(fig, out, inputs=[source], force=force)
+
+
 def draw_and_save(source: Path, out: Path, *, force: bool, tracks, settings):
     """Analyse ``source``, draw its figure to ``out``, and return the analysis."""
     from ..pipeline import analyse_detailed
-    from ..plot import analysis_figure, save_figure
 
     analysis = analyse_detailed(source, tracks=list(tracks) if tracks else None, settings=settings)
-    fig = analysis_figure(analysis, title=Path(source).name)
-    save_figure(fig, out, inputs=[source], force=force)
+    save_analysis_figure(analysis, source, out, force=force)
     return analysis
 
 

@@ -41,7 +41,8 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
 
     Returns
     -------
-    result : MetreResult
+    analysis : Analysis
+        With the chosen reading; ``analysis.result`` is what is reported.
     extra : dict
         Keys added to the JSON line: ``check`` (the verdict on a given time
         signature) and ``written`` (the files written).
@@ -85,4 +86,4 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
         lines.append(f"wrote {beats}: {int(np.sum(grid.detected))} beats")
     if written:
         extra["written"] = written
-    return result, extra, lines
+    return analysis, extra, lines
