@@ -33,6 +33,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -165,22 +166,26 @@ def circle_diagram(values, engine: str = "dionysus") -> CircleDiagram:
     m = len(f)
     if m < 3:
         raise ValueError("a circle needs at least 3 vertices")
-    neg = -f
-    simplices = [d.Simplex([k], neg[k]) for k in range(m)]
-    simplices += [d.Simplex([k, (k + 1) % m], max(neg[k], neg[(k + 1) % m])) for k in range(m)]
-    filt = d.Filtration(simplices)
+    # The lower-star filtration of the path 0..M-1 is built in C++ by
+    # fill_freudenthal (a one-dimensional grid); the edge (M-1, 0) closes the
+    # circle. dionysus keeps filtration values in single precision, as it
+    # would for Simplex objects built one by one, and sort() orders by value,
+    # then dimension, then vertices, so the filtration is the same.
+    neg = (-f).astype(np.float32)
+    filt = d.fill_freudenthal(neg)
+    filt.append(d.Simplex([0, m - 1], float(max(neg[0], neg[m - 1]))))
     filt.sort()
     pers = d.homology_persistence(filt)
     dgms = d.init_diagrams(pers, filt)
     floor = -min(p.birth for p in dgms[1]) if len(dgms[1]) else float(f.min())
     peaks, births, deaths = [], [], []
     for p in dgms[0]:
-        birth_vertex = filt[p.data][0]
-        peaks.append(birth_vertex)
-        births.append(-p.birth)
-        deaths.append(floor if np.isinf(p.death) else -p.death)
-    keep = [i for i in range(len(peaks)) if births[i] > deaths[i] or deaths[i] == floor]
-    return _ordered([peaks[i] for i in keep], [births[i] for i in keep], [deaths[i] for i in keep], floor)
+        birth, death = -p.birth, (floor if math.isinf(p.death) else -p.death)
+        if birth > death or death == floor:
+            peaks.append(filt[p.data][0])
+            births.append(birth)
+            deaths.append(death)
+    return _ordered(peaks, births, deaths, floor)
 
 
 def rips_diagrams(points, max_radius: float | None = None, prime: int = 11) -> list[np.ndarray]:
