@@ -9,7 +9,8 @@ Usage::
 ``record`` analyses a fixed sample and stores, per piece, the JSON output
 (``MetreResult.to_dict()``, which carries the chosen reading's features as
 ``score_terms``) and every scored candidate of the metric tree (shape,
-downbeat position, score), with the CPU time (``time.process_time``) each
+downbeat position, score) and every wrapped cycle of it (length, peaks,
+relative persistences), with the CPU time (``time.process_time``) each
 analysis took. The sample, with ``--tunes 300 --grooves 50`` (the defaults):
 
 - Essen *training* tunes (bench/split.md), every other one rendered deadpan
@@ -62,6 +63,12 @@ def _candidates(tree) -> list:
              float(c.downbeat_pulses), float(c.score)] for c in tree.candidates]
 
 
+def _cycles(tree) -> list:
+    """The wrapped cycle lengths, each with its merge tree's peaks and relative persistences."""
+    return [[str(k), tree.cycles[k].diagram.peaks.tolist(), tree.cycles[k].relative_persistence.tolist()]
+            for k in sorted(tree.cycles)]
+
+
 def sample(n_tunes: int, n_grooves: int) -> list[tuple[str, object]]:
     """The pieces, as (id, Performance or demo path)."""
     from essen import load_corpus, split_of
@@ -84,6 +91,7 @@ def sample(n_tunes: int, n_grooves: int) -> list[tuple[str, object]]:
 
 
 def analyse_piece(item) -> tuple[dict, float]:
+    """The record of one piece, and the CPU time of its analysis alone."""
     from metertop.errors import InputError
     from metertop.pipeline import analyse_detailed
     from metertop.scores import analyse_score, is_score_path
@@ -91,15 +99,18 @@ def analyse_piece(item) -> tuple[dict, float]:
     c0 = time.process_time()
     try:
         if isinstance(item, Path) and is_score_path(item):
-            record = {"tunes": [{"result": _plain(a.result.to_dict()), "candidates": _candidates(a.analysis.tree)}
-                                for a in analyse_score(item)]}
+            analyses = analyse_score(item)
+            cpu = time.process_time() - c0
+            record = {"tunes": [{"result": _plain(a.result.to_dict()), "candidates": _candidates(a.analysis.tree),
+                                 "cycles": _cycles(a.analysis.tree)} for a in analyses]}
         else:
-            source = str(item) if isinstance(item, Path) else item.note_table()
-            a = analyse_detailed(source)
-            record = {"result": _plain(a.result.to_dict()), "candidates": _candidates(a.tree)}
+            a = analyse_detailed(str(item) if isinstance(item, Path) else item.note_table())
+            cpu = time.process_time() - c0
+            record = {"result": _plain(a.result.to_dict()), "candidates": _candidates(a.tree), "cycles": _cycles(a.tree)}
     except InputError as exc:
+        cpu = time.process_time() - c0
         record = {"error": str(exc)}
-    return record, time.process_time() - c0
+    return record, cpu
 
 
 def record(path: Path, n_tunes: int, n_grooves: int) -> None:

@@ -55,8 +55,10 @@ the readings that agree on it.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from fractions import Fraction
+from functools import lru_cache
 
 import networkx as nx
 import numpy as np
@@ -185,6 +187,9 @@ class _Scanner:
     def __post_init__(self) -> None:
         self.lo, self.hi = float(self.positions.min()), float(self.positions.max())
         self.span = self.hi - self.lo
+        # searchsorted on the inner positions, plus one, is searchsorted on
+        # all of them clipped to [1, n - 1]: the left and right neighbours.
+        self._inner = self.positions[1:-1]
 
     @property
     def width_pulses(self) -> float:
@@ -211,6 +216,27 @@ class _Scanner:
         return self.grids[key]
 
     def _grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
+        lo, hi = self.lo, self.hi
+        if len(offsets) == 0 or len(self.positions) < 2:
+            return self._grid_weights_plain(start, period, offsets, tol)
+        k = np.arange(np.floor((lo - start) / period), np.ceil((hi - start) / period) + 1)
+        base = start + k * period
+        # Float addition is monotone, so a row's extreme points are its
+        # extreme offsets: rows wholly inside the span are found on the rows.
+        inside = (base + offsets.min() >= lo - tol) & (base + offsets.max() <= hi + tol)
+        pts = base[inside][:, None] + offsets[None, :]
+        if pts.size == 0:
+            return np.zeros((0, len(offsets)))
+        flat = pts.ravel()
+        x, w = self.positions, self.weights
+        right = np.searchsorted(self._inner, flat) + 1
+        left = right - 1
+        d_left, d_right = np.abs(x[left] - flat), np.abs(x[right] - flat)
+        take_left = d_left <= d_right
+        nearest_w = np.where(take_left, w[left], w[right])
+        return np.where(np.where(take_left, d_left, d_right) <= tol, nearest_w, 0.0).reshape(pts.shape)
+
+    def _grid_weights_plain(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         pts = self._grid(start, period, offsets, tol)
         x, w = self.positions, self.weights
         if pts.size == 0:
@@ -225,7 +251,7 @@ class _Scanner:
     def occupancy(self, start: float, period: float, offsets: np.ndarray, tol: float) -> float:
         """Share of the grid points ``start + offsets + k * period`` that have an onset within ``tol``."""
         gw = self.grid_weights(start, period, offsets, tol)
-        return float(np.mean(gw > 0)) if gw.size else 0.0
+        return np.count_nonzero(gw > 0) / gw.size if gw.size else 0.0
 
     def salience_at(self, period_s: float) -> float:
         """The pulse scan's relative salience at ``period_s`` (log-period interpolation; 0 outside the scanned range)."""
@@ -254,32 +280,32 @@ def _snap_unit(*lengths: Fraction) -> Fraction:
     return F(1, 12)
 
 
-def _others_max(cyc: WrappedCycle, phase: float, tol: float) -> float:
-    pp, rel = cyc.peak_phases, cyc.relative_persistence
-    d = np.abs(((pp - phase) + 0.5) % 1.0 - 0.5)
-    others = rel[d > tol]
-    return float(others.max()) if len(others) else 0.0
-
-
 def _margin(cyc: WrappedCycle, phase: float, tol: float) -> float:
     """Relative persistence of the peak at ``phase`` minus the largest elsewhere.
 
     1 when the position is the essential peak and nothing else persists; 0
     or below when another position persists as long.
     """
-    return float(cyc.persistence_at([phase], tol)[0]) - _others_max(cyc, phase, tol)
+    pp, rel = cyc.peak_phases, cyc.relative_persistence
+    if len(rel) == 0:
+        return 0.0
+    d = np.abs(((pp - phase) + 0.5) % 1.0 - 0.5)
+    near = d <= tol
+    at = float(np.where(near, rel, 0.0).max())
+    others = rel[~near]
+    return at - (float(others.max()) if len(others) else 0.0)
 
 
-def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, offsets: np.ndarray, sub: float, tol: float,
+def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, others: np.ndarray, grid: np.ndarray, tol: float,
                   otol: float) -> float:
     """Margin of the downbeat at bar length, weighted by how many other beats carry onsets and by its reliability.
 
-    The margin compares the downbeat with every other peak, so the
-    reliability compares it with every other position of the subdivision
-    grid (``sub`` apart), not only with the beats.
+    ``others`` are the offsets of the other beats and ``grid`` the
+    subdivision grid of the bar. The margin compares the downbeat with every
+    other peak, so the reliability compares it with every other position of
+    the subdivision grid, not only with the beats.
     """
-    occupied = scan.occupancy(x0, L, offsets[1:], otol)
-    grid = np.arange(int(round(L / sub))) * sub
+    occupied = scan.occupancy(x0, L, others, otol)
     return _margin(cyc, x0 / L, tol) * occupied * _reliability(scan.grid_weights(x0, L, grid, otol))
 
 
@@ -294,15 +320,19 @@ def _reliability(cycle_weights: np.ndarray) -> float:
     """
     if cycle_weights.shape[0] < 3 or cycle_weights.shape[1] < 2:
         return 0.0
-    rival = int(np.argmax(cycle_weights[:, 1:].mean(axis=0))) + 1
+    n = cycle_weights.shape[0]
+    rival = int(np.argmax(cycle_weights[:, 1:].sum(axis=0) / n)) + 1
     d = cycle_weights[:, 0] - cycle_weights[:, rival]
-    mean, sd = d.mean(), d.std(ddof=1)
+    # mean and std(ddof=1) as numpy computes them, without its wrappers.
+    mean = d.sum() / n
+    dev = d - mean
+    sd = math.sqrt((dev * dev).sum() / (n - 1))
     scale = float(np.abs(cycle_weights).max()) or 1.0
     if mean <= 1e-9 * scale:
         return 0.0
     if sd <= 1e-9 * scale:
         return 1.0  # the same difference in every bar
-    t = mean / (sd / np.sqrt(len(d)))
+    t = mean / (sd / math.sqrt(n))
     return float(t * t / (t * t + 4.0))
 
 
@@ -324,20 +354,82 @@ def _unexplained(cyc: WrappedCycle, grid_phases: np.ndarray, tol: float) -> floa
     return float(rel[d > tol].sum() / total)
 
 
-def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, pulse_s, s: TreeSettings, drums: bool) -> list[Candidate]:
-    cyc = scan(bar)
+@dataclass(frozen=True)
+class _Shape:
+    """What a reading's measures need of its shape, in floats and arrays, worked out once per shape."""
+
+    L: float
+    sub: float
+    tol: float
+    unit: float
+    fine: float
+    fine_grid: np.ndarray
+    offsets: np.ndarray
+    otol: float
+    bar_grid: np.ndarray
+    half: Fraction | None
+    half_L: float
+    half_grid: np.ndarray | None
+    double: Fraction
+    double_grid: np.ndarray
+    beat_f: float
+    subs: np.ndarray | None
+    family: str
+
+
+_ZERO = np.zeros(1)
+
+
+@lru_cache(maxsize=4096)
+def _shape(beat, division, n, grouping, tatum, bar) -> _Shape:
     L = float(bar)
     sub = tatum if grouping else beat / division
-    tol = min(0.25 * float(sub) / L, 0.12)
-    unit = float(_snap_unit(bar, tatum if grouping else beat))
+    sub_f = float(sub)
     # The finest grid a reading accounts for: two levels below the beat.
     fine = float(tatum / 2 if grouping else beat / (2 * division))
-    fine_grid = np.arange(int(round(L / fine))) * fine
+    offsets = _beat_starts(n, beat, grouping, tatum)
+    half = bar / 2 if grouping is None and n == 4 else None
+    half_L = float(half) if half is not None else 0.0
+    double_sub = float(beat) if grouping is None else L
+    shape = _Shape(
+        L=L, sub=sub_f, tol=min(0.25 * sub_f / L, 0.12), unit=float(_snap_unit(bar, tatum if grouping else beat)),
+        fine=fine, fine_grid=np.arange(int(round(L / fine))) * fine, offsets=offsets, otol=sub_f * 0.25,
+        bar_grid=np.arange(int(round(L / sub_f))) * sub_f, half=half, half_L=half_L,
+        half_grid=np.arange(int(round(half_L / sub_f))) * sub_f if half is not None else None,
+        double=2 * bar, double_grid=np.arange(int(round(2 * L / double_sub))) * double_sub, beat_f=float(beat),
+        subs=(np.arange(1, division) * float(beat) / division) if grouping is None else None,
+        family=_family(n, division, grouping))
+    for arr in (shape.fine_grid, shape.offsets, shape.bar_grid, shape.half_grid, shape.double_grid, shape.subs):
+        if arr is not None:
+            arr.flags.writeable = False  # shared by every tree
+    return shape
+
+
+def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, pulse_s, s: TreeSettings, drums: bool) -> list[Candidate]:
+    sh = _shape(beat, division, n, grouping, tatum, bar)
+    cyc = scan(bar)
+    L, tol, unit, otol, offsets = sh.L, sh.tol, sh.unit, sh.otol, sh.offsets
     seen, out = set(), []
     rel = cyc.relative_persistence
+    # The cycles a phase's measures read (cached by the scanner).
+    half_cyc = scan(sh.half) if sh.half is not None else None
+    has_double = 2 * L <= scan.span / 1.5
+    double_cyc = scan(sh.double) if has_double else None
+    beat_cyc = scan(beat) if grouping is None else None
+    if grouping is not None:
+        starts = _group_starts(grouping)
+        inner = np.setdiff1d(np.arange(sum(grouping)), starts)
+        t = float(tatum)
+        group_cycles = [(scan(tatum * k), k, start) for k, start in zip(grouping, starts)]
+    # The reading's tempo and shape features do not depend on the phase.
+    beat_s = (L / len(grouping) if grouping else sh.beat_f) * pulse_s  # uneven beats: their mean
+    family = sh.family
+    reference_s = s.beat_reference_s
+    if division == 3 and s.compound_beat_reference_s is not None:
+        reference_s = s.compound_beat_reference_s
+    log_beat = float(np.log2(beat_s / reference_s))
+    beat_salience = scan.salience_at(beat_s)
     # Downbeat candidates: the most persistent peaks, snapped to the grid.
-    offsets = _beat_starts(n, beat, grouping, tatum)
-    otol = float(sub) * 0.25
     for ph, r in zip(cyc.peak_phases[: s.phase_candidates], rel[: s.phase_candidates]):
         if r < 0.2 and out:
             break
@@ -349,58 +441,46 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         # folds every onset onto one phase and has a perfect margin, but its
         # other beats are empty. Margins are weighted by the share of the
         # compared positions that carry an onset.
-        support = np.log(max(scan.occupancy(x0, L, np.zeros(1), otol), 0.05))
-        bar_term = _bar_evidence(scan, cyc, x0, L, offsets, float(sub), tol, otol) if n > 1 else 0.0
+        support = np.log(max(scan.occupancy(x0, L, _ZERO, otol), 0.05))
+        bar_term = _bar_evidence(scan, cyc, x0, L, offsets[1:], sh.bar_grid, tol, otol) if n > 1 else 0.0
         # Nesting: a bar of four beats also shows its half bar.
         half_term = 0.0
-        if grouping is None and n == 4:
-            half = bar / 2
-            half_term = _bar_evidence(scan, scan(half), x0 % float(half), float(half), offsets[:2], float(sub), 2 * tol, otol)
+        if half_cyc is not None:
+            half_term = _bar_evidence(scan, half_cyc, x0 % sh.half_L, sh.half_L, offsets[1:2], sh.half_grid, 2 * tol, otol)
         # A true bar explains more than its half, and its double adds little:
         # the evidence for a downbeat every other bar.
         double_term = 0.0
-        if 2 * L <= scan.span / 1.5:
-            double_term = _bar_evidence(scan, scan(2 * bar), x0, 2 * L, np.array([0.0, L]), float(beat) if grouping is None else L,
-                                        tol / 2, otol)
+        if has_double:
+            double_term = _bar_evidence(scan, double_cyc, x0, 2 * L, np.array([L]), sh.double_grid, tol / 2, otol)
         if grouping is None:
             # The beat against its own subdivisions, at beat length.
-            bc = scan(beat)
-            bphase = (x0 % float(beat)) / float(beat)
-            beat_margin = _margin(bc, bphase, min(0.25 / division, 0.12))
+            beat_f = sh.beat_f
+            bphase = (x0 % beat_f) / beat_f
+            beat_margin = _margin(beat_cyc, bphase, min(0.25 / division, 0.12))
             # As for the bar: a beat stands out only against subdivisions that
             # are played; with none, the beat level is undecided here.
-            subs = (np.arange(1, division) * float(beat) / division)
             beats_played = scan.occupancy(x0, L, offsets, otol)
-            beat_term = beat_margin * (0.5 + 0.5 * scan.occupancy(x0, float(beat), subs, otol)) * beats_played
+            beat_term = beat_margin * (0.5 + 0.5 * scan.occupancy(x0, beat_f, sh.subs, otol)) * beats_played
             # A division only counts for a beat that stands out and is played: a
             # length that smears two beat positions together fills its
             # "halves" trivially.
-            division_term = _division_term(bc, bphase, division) * max(beat_margin, 0.0) * beats_played
+            division_term = _division_term(beat_cyc, bphase, division) * max(beat_margin, 0.0) * beats_played
         else:
             # Additive bars, at bar length: group starts against the other
             # tatums (the beat level).
-            starts = _group_starts(grouping)
-            inner = np.setdiff1d(np.arange(sum(grouping)), starts)
-            t = float(tatum)
             pb = cyc.persistence_at(((x0 + starts[1:] * t) % L) / L, tol).mean()
             po = cyc.persistence_at(((x0 + inner * t) % L) / L, tol).mean()
             beat_term = float(pb - po) * scan.occupancy(x0, L, offsets, otol)
             # Each group is a beat divided into its own number of tatums; as
             # for equal beats, the division counts only for beats that stand out.
-            division_term = float(np.mean([_division_term(scan(tatum * k), ((x0 + start * t) % (k * t)) / (k * t), k)
-                                           for k, start in zip(grouping, starts)])) * max(float(pb - po), 0.0)
-        unexplained = _unexplained(cyc, ((x0 + fine_grid) % L) / L, min(tol, 0.25 * fine / L))
-        beat_s = (L / len(grouping) if grouping else float(beat)) * pulse_s  # uneven beats: their mean
-        family = _family(n, division, grouping)
-        reference_s = s.beat_reference_s
-        if division == 3 and s.compound_beat_reference_s is not None:
-            reference_s = s.compound_beat_reference_s
-        log_beat = float(np.log2(beat_s / reference_s))
+            division_term = float(np.mean([_division_term(gc, ((x0 + start * t) % (k * t)) / (k * t), k)
+                                           for gc, k, start in group_cycles])) * max(float(pb - po), 0.0)
+        unexplained = _unexplained(cyc, ((x0 + sh.fine_grid) % L) / L, min(tol, 0.25 * sh.fine / L))
         features = {
             "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
             "beat": float(beat_term), "division": float(division_term),
             "unexplained": float(unexplained), "support": float(support),
-            "beat_salience": scan.salience_at(beat_s),
+            "beat_salience": beat_salience,
             "log_beat": log_beat, "log_beat_sq": log_beat ** 2,
             "compound": float(family == "compound"), "single": float(family == "single"),
             "irregular": float(family == "irregular"),
