@@ -252,9 +252,9 @@ def _assemble(notes: NoteTable, t: np.ndarray, pulse: PulseTrack, tree: MetricTr
     from_pulses = float(pulse.warp([t0 - tol])[0])
     levels = []
     for name in ("subdivision", "beat", "bar", "hypermeasure"):
-        if name not in tree.graph:
+        if name not in tree.levels:
             continue
-        node = tree.graph.nodes[name]
+        node = tree.levels[name]
         length = float(node["length"])
         first = _first_at(pulse, node.get("start", best.downbeat_pulses), length, from_pulses)
         levels.append(Level(name, length * pulse_s, first, node["score"], node["confidence"]))

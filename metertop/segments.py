@@ -50,10 +50,8 @@ from fractions import Fraction
 
 import numpy as np
 
-import networkx as nx
-
 from .tempo import viterbi_path
-from .tree import ADDITIVE, Candidate, MetricTree, TreeSettings, _margin, _Scanner, build_tree
+from .tree import ADDITIVE, Candidate, Lattice, MetricTree, TreeSettings, _margin, _Scanner, build_tree
 
 __all__ = ["SegmentSettings", "SegmentReading", "find_segments"]
 
@@ -96,11 +94,11 @@ def _unit(c: Candidate) -> float:
     return float(c.tatum if c.grouping else c.beat / c.division)
 
 
-def _window_lattice(main: Candidate) -> nx.MultiDiGraph:
+def _window_lattice(main: Candidate) -> Lattice:
     """The readings a window is scored on: bars of one to five main beats (in the main division), bars of the beat
     with the other division on the same tatum (3/4 against 6/8), and additive bars of the tatum."""
     tatum = main.tatum if main.grouping else main.beat / main.division
-    g = nx.MultiDiGraph()
+    g = Lattice()
     for beat, div in ((tatum * 2, 2), (tatum * 3, 3)):
         g.add_edge(beat / div, beat, key=("division", div), kind="division", ratio=div)
         for n in range(1, 6):

@@ -4,7 +4,8 @@ Conventions
 -----------
 - Works in pulse time (:mod:`metertop.tempo`): the tracked pulse has length 1.
 - Cycle lengths are exact fractions of the pulse (:class:`fractions.Fraction`).
-- A *reading* is a path in the cycle lattice, a networkx DiGraph whose nodes
+- A *reading* is a path in the cycle lattice, a directed multigraph (:class:`Lattice`;
+  :func:`cycle_lattice` gives it as a networkx MultiDiGraph) whose nodes
   are cycle lengths and whose edges say "is divided into": subdivision ->
   beat (by 2 or 3), beat -> bar (2 to 5 beats, or one compound beat), and
   tatum -> bar for additive bars (5 or 7 tatums grouped in 2s and 3s).
@@ -58,15 +59,14 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from fractions import Fraction
-from functools import lru_cache
+from functools import cached_property, lru_cache
 
-import networkx as nx
 import numpy as np
 
 from .model import ReadingModel, default_model
 from .scan import WrappedCycle, wrap_cycle
 
-__all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "promote", "time_signature_of"]
+__all__ = ["TreeSettings", "Candidate", "MetricTree", "Lattice", "cycle_lattice", "build_tree", "promote", "time_signature_of"]
 
 F = Fraction
 # Additive groupings of an irregular bar, in tatums (common practice).
@@ -144,8 +144,73 @@ def time_signature_of(beats_per_bar: int, division: int | None, grouping) -> str
     return f"{beats_per_bar}/4"
 
 
-def cycle_lattice(beats=(F(1, 3), F(1, 2), F(2, 3), F(1), F(3, 2), F(2), F(3), F(4)), tatums=(F(1, 2), F(1))) -> nx.MultiDiGraph:
-    """The lattice of candidate cycle lengths, in pulses.
+class Lattice:
+    """A directed multigraph of cycle lengths in plain dicts, walked as networkx walks a MultiDiGraph.
+
+    Scoring only walks the edges, so it needs no networkx, which takes a
+    quarter of a second to import; :meth:`to_networkx` gives the same graph
+    as a ``networkx.MultiDiGraph``. ``add_edge``, ``edges(data=True)`` and
+    ``in_edges(v, data=True)`` behave as networkx's, in the same order.
+    """
+
+    def __init__(self) -> None:
+        self._succ: dict = {}
+        self._pred: dict = {}
+        self._added: list = []  # the add_edge calls, for to_networkx
+
+    def add_edge(self, u, v, key, **data) -> None:
+        self._added.append((u, v, key, data))
+        for node in (u, v):
+            if node not in self._succ:
+                self._succ[node], self._pred[node] = {}, {}
+        keyed = self._succ[u].get(v)
+        if keyed is None:
+            keyed = self._succ[u][v] = self._pred[v][u] = {}
+        keyed.setdefault(key, {}).update(data)
+
+    def edges(self, data: bool = False):
+        for u, nbrs in self._succ.items():
+            for v, keyed in nbrs.items():
+                for d in keyed.values():
+                    yield (u, v, d) if data else (u, v)
+
+    def in_edges(self, v, data: bool = False):
+        for u, keyed in self._pred[v].items():
+            for d in keyed.values():
+                yield (u, v, d) if data else (u, v)
+
+    def to_networkx(self):
+        """The same graph as a ``networkx.MultiDiGraph`` (networkx imported here)."""
+        import networkx as nx
+
+        g = nx.MultiDiGraph()
+        for u, v, key, data in self._added:
+            g.add_edge(u, v, key=key, **data)
+        return g
+
+
+_BEATS = (F(1, 3), F(1, 2), F(2, 3), F(1), F(3, 2), F(2), F(3), F(4))
+_TATUMS = (F(1, 2), F(1))
+
+
+def _lattice(beats=_BEATS, tatums=_TATUMS) -> Lattice:
+    g = Lattice()
+    for beat in beats:
+        for div in (2, 3):
+            g.add_edge(beat / div, beat, key=("division", div), kind="division", ratio=div)
+        for n in range(1, 6):
+            g.add_edge(beat, beat * n, key=("bar", n), kind="bar", ratio=n)  # up to 5/4; 12/8 at most for compound beats
+    for tatum in tatums:
+        for grouping in ADDITIVE:
+            g.add_edge(tatum, tatum * sum(grouping), key=("additive", grouping), kind="additive", ratio=sum(grouping), grouping=grouping)
+    return g
+
+
+_DEFAULT_LATTICE = _lattice()
+
+
+def cycle_lattice(beats=_BEATS, tatums=_TATUMS):
+    """The lattice of candidate cycle lengths, in pulses, as a ``networkx.MultiDiGraph``.
 
     Edges carry ``kind`` (``division``, ``bar`` or ``additive``) and the
     integer ``ratio`` of the lengths (and ``grouping`` for additive edges);
@@ -159,16 +224,12 @@ def cycle_lattice(beats=(F(1, 3), F(1, 2), F(2, 3), F(1), F(3, 2), F(2), F(3), F
     >>> sorted(k[1] for _, _, k in g.out_edges(F(1, 2), keys=True) if k[0] == "additive")
     [(2, 2, 3), (2, 3), (2, 3, 2), (3, 2), (3, 2, 2)]
     """
-    g = nx.MultiDiGraph()
-    for beat in beats:
-        for div in (2, 3):
-            g.add_edge(beat / div, beat, key=("division", div), kind="division", ratio=div)
-        for n in range(1, 6):
-            g.add_edge(beat, beat * n, key=("bar", n), kind="bar", ratio=n)  # up to 5/4; 12/8 at most for compound beats
-    for tatum in tatums:
-        for grouping in ADDITIVE:
-            g.add_edge(tatum, tatum * sum(grouping), key=("additive", grouping), kind="additive", ratio=sum(grouping), grouping=grouping)
-    return g
+    return _lattice(beats, tatums).to_networkx()
+
+
+def _offsets_key(offsets) -> bytes:
+    """The offsets' part of a grid's cache key: rounded, so that grids equal but for rounding share."""
+    return np.asarray(offsets, dtype=float).round(9).tobytes()
 
 
 @dataclass
@@ -210,10 +271,54 @@ class _Scanner:
         cached by their arguments; callers must not modify the array.
         """
         offsets = np.asarray(offsets, dtype=float)
-        key = (round(start, 9), round(period, 9), offsets.round(9).tobytes(), round(tol, 9))
+        key = (round(start, 9), round(period, 9), _offsets_key(offsets), round(tol, 9))
         if key not in self.grids:
             self.grids[key] = self._grid_weights(start, period, offsets, tol)
         return self.grids[key]
+
+    def grid_block(self, start: float, period: float, tol: float, offsets_list, offset_keys=None) -> list[np.ndarray]:
+        """:meth:`grid_weights` of several offset arrays at one start and period, looked up together.
+
+        The same arrays as one call each, in order, through the same cache:
+        a grid point's weight depends only on its position, so every missing
+        grid is cut from one lookup of all their columns over the rows.
+        ``offset_keys``, if given, are :func:`_offsets_key` of the arrays.
+        """
+        if offset_keys is None:
+            offset_keys = [_offsets_key(o) for o in offsets_list]
+        head, rtol = (round(start, 9), round(period, 9)), round(tol, 9)
+        keys = [head + (ok, rtol) for ok in offset_keys]
+        grids = self.grids
+        todo = [i for i, key in enumerate(keys) if key not in grids]
+        if len(todo) > 1 and len(self.positions) >= 2 and all(len(offsets_list[i]) for i in todo):
+            lo, hi = self.lo, self.hi
+            k = np.arange(np.floor((lo - start) / period), np.ceil((hi - start) / period) + 1)
+            base = start + k * period
+            cols = np.concatenate([offsets_list[i] for i in todo])
+            block = self._lookup(base[:, None] + cols[None, :], tol)
+            c0 = 0
+            for i in todo:
+                o = offsets_list[i]
+                if keys[i] not in grids:  # a repeated key keeps its first result
+                    inside = (base + o.min() >= lo - tol) & (base + o.max() <= hi + tol)
+                    grids[keys[i]] = block[inside, c0:c0 + len(o)]
+                c0 += len(o)
+        else:
+            for i in todo:
+                if keys[i] not in grids:
+                    grids[keys[i]] = self._grid_weights(start, period, np.asarray(offsets_list[i], dtype=float), tol)
+        return [grids[key] for key in keys]
+
+    def _lookup(self, pts: np.ndarray, tol: float) -> np.ndarray:
+        """Weight of the onset nearest each point (the left one on a tie), 0 where none lies within ``tol``."""
+        flat = pts.ravel()
+        x, w = self.positions, self.weights
+        right = np.searchsorted(self._inner, flat) + 1
+        left = right - 1
+        d_left, d_right = np.abs(x[left] - flat), np.abs(x[right] - flat)
+        take_left = d_left <= d_right
+        nearest_w = np.where(take_left, w[left], w[right])
+        return np.where(np.where(take_left, d_left, d_right) <= tol, nearest_w, 0.0).reshape(pts.shape)
 
     def _grid_weights(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         lo, hi = self.lo, self.hi
@@ -227,14 +332,7 @@ class _Scanner:
         pts = base[inside][:, None] + offsets[None, :]
         if pts.size == 0:
             return np.zeros((0, len(offsets)))
-        flat = pts.ravel()
-        x, w = self.positions, self.weights
-        right = np.searchsorted(self._inner, flat) + 1
-        left = right - 1
-        d_left, d_right = np.abs(x[left] - flat), np.abs(x[right] - flat)
-        take_left = d_left <= d_right
-        nearest_w = np.where(take_left, w[left], w[right])
-        return np.where(np.where(take_left, d_left, d_right) <= tol, nearest_w, 0.0).reshape(pts.shape)
+        return self._lookup(pts, tol)
 
     def _grid_weights_plain(self, start: float, period: float, offsets: np.ndarray, tol: float) -> np.ndarray:
         pts = self._grid(start, period, offsets, tol)
@@ -250,8 +348,7 @@ class _Scanner:
 
     def occupancy(self, start: float, period: float, offsets: np.ndarray, tol: float) -> float:
         """Share of the grid points ``start + offsets + k * period`` that have an onset within ``tol``."""
-        gw = self.grid_weights(start, period, offsets, tol)
-        return np.count_nonzero(gw > 0) / gw.size if gw.size else 0.0
+        return _occupied(self.grid_weights(start, period, offsets, tol))
 
     def salience_at(self, period_s: float) -> float:
         """The pulse scan's relative salience at ``period_s`` (log-period interpolation; 0 outside the scanned range)."""
@@ -296,17 +393,21 @@ def _margin(cyc: WrappedCycle, phase: float, tol: float) -> float:
     return at - (float(others.max()) if len(others) else 0.0)
 
 
-def _bar_evidence(scan: _Scanner, cyc: WrappedCycle, x0: float, L: float, others: np.ndarray, grid: np.ndarray, tol: float,
-                  otol: float) -> float:
+def _occupied(grid_weights: np.ndarray) -> float:
+    """Share of the grid points that carry an onset."""
+    return np.count_nonzero(grid_weights > 0) / grid_weights.size if grid_weights.size else 0.0
+
+
+def _bar_evidence(cyc: WrappedCycle, x0: float, L: float, others: np.ndarray, grid: np.ndarray, tol: float) -> float:
     """Margin of the downbeat at bar length, weighted by how many other beats carry onsets and by its reliability.
 
-    ``others`` are the offsets of the other beats and ``grid`` the
-    subdivision grid of the bar. The margin compares the downbeat with every
-    other peak, so the reliability compares it with every other position of
-    the subdivision grid, not only with the beats.
+    ``others`` are the grid weights (:meth:`_Scanner.grid_weights`) of the
+    other beats and ``grid`` those of the subdivision grid of the bar. The
+    margin compares the downbeat with every other peak, so the reliability
+    compares it with every other position of the subdivision grid, not
+    only with the beats.
     """
-    occupied = scan.occupancy(x0, L, others, otol)
-    return _margin(cyc, x0 / L, tol) * occupied * _reliability(scan.grid_weights(x0, L, grid, otol))
+    return _margin(cyc, x0 / L, tol) * _occupied(others) * _reliability(grid)
 
 
 def _reliability(cycle_weights: np.ndarray) -> float:
@@ -339,9 +440,9 @@ def _reliability(cycle_weights: np.ndarray) -> float:
 def _division_term(beat_cycle: WrappedCycle, phase: float, division: int) -> float:
     """At beat length: persistence at the halves against the thirds of the beat (or the reverse for 3)."""
     tol = min(0.25 / division, 0.12)
-    halves = beat_cycle.persistence_at([(phase + 0.5) % 1], tol).mean()
-    thirds = beat_cycle.persistence_at([(phase + 1 / 3) % 1, (phase + 2 / 3) % 1], tol).mean()
-    return float(halves - thirds) if division == 2 else float(thirds - halves)
+    half, third, two_thirds = beat_cycle.persistence_at([(phase + 0.5) % 1, (phase + 1 / 3) % 1, (phase + 2 / 3) % 1], tol)
+    thirds = (third + two_thirds) / 2
+    return float(half - thirds) if division == 2 else float(thirds - half)
 
 
 def _unexplained(cyc: WrappedCycle, grid_phases: np.ndarray, tol: float) -> float:
@@ -375,9 +476,11 @@ class _Shape:
     beat_f: float
     subs: np.ndarray | None
     family: str
+    keys: dict = field(default_factory=dict)  # _offsets_key of the arrays above, by name
 
 
 _ZERO = np.zeros(1)
+_ZERO_KEY = _offsets_key(_ZERO)
 
 
 @lru_cache(maxsize=4096)
@@ -399,9 +502,14 @@ def _shape(beat, division, n, grouping, tatum, bar) -> _Shape:
         double=2 * bar, double_grid=np.arange(int(round(2 * L / double_sub))) * double_sub, beat_f=float(beat),
         subs=(np.arange(1, division) * float(beat) / division) if grouping is None else None,
         family=_family(n, division, grouping))
-    for arr in (shape.fine_grid, shape.offsets, shape.bar_grid, shape.half_grid, shape.double_grid, shape.subs):
+    for name in ("fine_grid", "offsets", "bar_grid", "half_grid", "double_grid", "subs"):
+        arr = getattr(shape, name)
         if arr is not None:
             arr.flags.writeable = False  # shared by every tree
+            shape.keys[name] = _offsets_key(arr)
+    shape.keys["others"] = _offsets_key(offsets[1:])
+    shape.keys["half_others"] = _offsets_key(offsets[1:2])
+    shape.keys["double_others"] = _offsets_key([L])
     return shape
 
 
@@ -421,6 +529,9 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         inner = np.setdiff1d(np.arange(sum(grouping)), starts)
         t = float(tatum)
         group_cycles = [(scan(tatum * k), k, start) for k, start in zip(grouping, starts)]
+    keys = sh.keys
+    bar_keys = (_ZERO_KEY, keys["others"], keys["bar_grid"], keys["offsets"])
+    double_others = np.array([L])
     # The reading's tempo and shape features do not depend on the phase.
     beat_s = (L / len(grouping) if grouping else sh.beat_f) * pulse_s  # uneven beats: their mean
     family = sh.family
@@ -441,17 +552,26 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         # folds every onset onto one phase and has a perfect margin, but its
         # other beats are empty. Margins are weighted by the share of the
         # compared positions that carry an onset.
-        support = np.log(max(scan.occupancy(x0, L, _ZERO, otol), 0.05))
-        bar_term = _bar_evidence(scan, cyc, x0, L, offsets[1:], sh.bar_grid, tol, otol) if n > 1 else 0.0
+        # The grids at bar length, looked up together (in the order they are used).
+        if n > 1:
+            at_bar = scan.grid_block(x0, L, otol, [_ZERO, offsets[1:], sh.bar_grid, offsets], bar_keys)
+        else:
+            at_bar = scan.grid_block(x0, L, otol, [_ZERO, offsets], (_ZERO_KEY, keys["offsets"]))
+        support = np.log(max(_occupied(at_bar[0]), 0.05))
+        bar_term = _bar_evidence(cyc, x0, L, at_bar[1], at_bar[2], tol) if n > 1 else 0.0
         # Nesting: a bar of four beats also shows its half bar.
         half_term = 0.0
         if half_cyc is not None:
-            half_term = _bar_evidence(scan, half_cyc, x0 % sh.half_L, sh.half_L, offsets[1:2], sh.half_grid, 2 * tol, otol)
+            hx = x0 % sh.half_L
+            others, grid = scan.grid_block(hx, sh.half_L, otol, [offsets[1:2], sh.half_grid], (keys["half_others"], keys["half_grid"]))
+            half_term = _bar_evidence(half_cyc, hx, sh.half_L, others, grid, 2 * tol)
         # A true bar explains more than its half, and its double adds little:
         # the evidence for a downbeat every other bar.
         double_term = 0.0
         if has_double:
-            double_term = _bar_evidence(scan, double_cyc, x0, 2 * L, np.array([L]), sh.double_grid, tol / 2, otol)
+            others, grid = scan.grid_block(x0, 2 * L, otol, [double_others, sh.double_grid], (keys["double_others"], keys["double_grid"]))
+            double_term = _bar_evidence(double_cyc, x0, 2 * L, others, grid, tol / 2)
+        beats_played = _occupied(at_bar[-1])
         if grouping is None:
             # The beat against its own subdivisions, at beat length.
             beat_f = sh.beat_f
@@ -459,8 +579,8 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             beat_margin = _margin(beat_cyc, bphase, min(0.25 / division, 0.12))
             # As for the bar: a beat stands out only against subdivisions that
             # are played; with none, the beat level is undecided here.
-            beats_played = scan.occupancy(x0, L, offsets, otol)
-            beat_term = beat_margin * (0.5 + 0.5 * scan.occupancy(x0, beat_f, sh.subs, otol)) * beats_played
+            subs_played = _occupied(scan.grid_block(x0, beat_f, otol, [sh.subs], (keys["subs"],))[0])
+            beat_term = beat_margin * (0.5 + 0.5 * subs_played) * beats_played
             # A division only counts for a beat that stands out and is played: a
             # length that smears two beat positions together fills its
             # "halves" trivially.
@@ -470,7 +590,7 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             # tatums (the beat level).
             pb = cyc.persistence_at(((x0 + starts[1:] * t) % L) / L, tol).mean()
             po = cyc.persistence_at(((x0 + inner * t) % L) / L, tol).mean()
-            beat_term = float(pb - po) * scan.occupancy(x0, L, offsets, otol)
+            beat_term = float(pb - po) * beats_played
             # Each group is a beat divided into its own number of tatums; as
             # for equal beats, the division counts only for beats that stand out.
             division_term = float(np.mean([_division_term(gc, ((x0 + start * t) % (k * t)) / (k * t), k)
@@ -519,9 +639,10 @@ class MetricTree:
         Every scored reading, best first.
     probabilities : ndarray
         Softmax of the scores (same order).
-    graph : networkx.DiGraph
-        The chosen reading's tree: nodes are level names with ``length``
-        (pulses), ``score`` and ``confidence``; edges carry the ratio.
+    levels : dict
+        The chosen reading's tree, fastest level first: level name to its
+        ``length`` (pulses), ``score`` and ``confidence`` (and ``start``
+        for the hypermeasure), plus ``ratio`` to the level below.
     cycles : dict
         The wrapped cycles by length (pulses), for reports and plots.
     hyper_bars : int or None
@@ -530,13 +651,28 @@ class MetricTree:
 
     candidates: list
     probabilities: np.ndarray
-    graph: nx.DiGraph
+    levels: dict
     cycles: dict
     hyper_bars: int | None
 
     @property
     def best(self) -> Candidate:
         return self.candidates[0]
+
+    @cached_property
+    def graph(self):
+        """The chosen reading's tree as a ``networkx.DiGraph``: nodes are the level names with ``length``,
+        ``score`` and ``confidence``; edges carry the ``ratio``."""
+        import networkx as nx
+
+        g = nx.DiGraph()
+        below = None
+        for name, attrs in self.levels.items():
+            g.add_node(name, **{k: v for k, v in attrs.items() if k != "ratio"})
+            if below is not None:
+                g.add_edge(below, name, ratio=attrs["ratio"])
+            below = name
+        return g
 
 
 def _agree(a: Candidate, b: Candidate, level: str) -> bool:
@@ -558,7 +694,7 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
 
 def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
                drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None,
-               lattice: nx.MultiDiGraph | None = None) -> MetricTree:
+               lattice=None) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -576,13 +712,13 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         The pulse scan's salience profile over candidate periods in seconds
         (:meth:`metertop.tempo.PulseTrack.salience_profile`), for the
         ``beat_salience`` feature; without it the feature is 0.
-    lattice : networkx.MultiDiGraph, optional
+    lattice : Lattice or networkx.MultiDiGraph, optional
         The readings to score (:func:`cycle_lattice`); all by default.
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
     scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
-    lattice = cycle_lattice() if lattice is None else lattice
+    lattice = _DEFAULT_LATTICE if lattice is None else lattice
     span_pulses = scan.span
     cands: list[Candidate] = []
     for lo, hi, data in lattice.edges(data=True):
@@ -670,18 +806,17 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     return best_k, best_ev, best_start
 
 
-def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score, hyper_start) -> nx.DiGraph:
-    g = nx.DiGraph()
+def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score, hyper_start) -> dict:
     sub_len = best.tatum if best.grouping else best.beat / best.division
     conf = {lv: float(sum(pi for c, pi in zip(cands, p) if _agree(best, c, lv))) for lv in ("subdivision", "beat", "bar")}
     sub_cyc = scan(sub_len)
-    g.add_node("subdivision", length=sub_len, score=float(sub_cyc.contrast), confidence=conf["subdivision"])
-    g.add_node("beat", length=best.beat, score=float(best.terms["beat"]), confidence=conf["beat"])
-    g.add_node("bar", length=best.bar, score=float(best.terms["bar"]), confidence=conf["bar"])
-    g.add_edge("subdivision", "beat", ratio=(best.grouping if best.grouping else best.division))
-    g.add_edge("beat", "bar", ratio=best.beats_per_bar)
+    levels = {
+        "subdivision": {"length": sub_len, "score": float(sub_cyc.contrast), "confidence": conf["subdivision"]},
+        "beat": {"length": best.beat, "score": float(best.terms["beat"]), "confidence": conf["beat"],
+                 "ratio": best.grouping if best.grouping else best.division},
+        "bar": {"length": best.bar, "score": float(best.terms["bar"]), "confidence": conf["bar"], "ratio": best.beats_per_bar},
+    }
     if hyper is not None:
-        g.add_node("hypermeasure", length=best.bar * hyper, score=float(hyper_score), confidence=float(min(max(hyper_score, 0.0), 1.0)),
-                   start=hyper_start)
-        g.add_edge("bar", "hypermeasure", ratio=hyper)
-    return g
+        levels["hypermeasure"] = {"length": best.bar * hyper, "score": float(hyper_score),
+                                  "confidence": float(min(max(hyper_score, 0.0), 1.0)), "start": hyper_start, "ratio": hyper}
+    return levels

@@ -235,3 +235,21 @@ def test_unionfind_returns_a_circle_diagram():
     d = circle_diagram_unionfind([0.0, 1.0, 0.2, 0.9, 0.1, 0.5])
     assert isinstance(d, CircleDiagram)
     assert len(d.peaks) == len(d.births) == len(d.deaths) == 3
+
+
+def test_circle_filtration_equals_the_one_built_simplex_by_simplex():
+    """circle_diagram's filtration (dionysus's fill_freudenthal on the path, plus the closing edge) is, simplex for
+    simplex and value for value, the lower-star filtration of the circle built one Simplex at a time."""
+    import dionysus as d
+
+    for f in FUNCTIONS[:300]:
+        m = len(f)
+        neg = -np.asarray(f, dtype=np.float64)
+        by_hand = d.Filtration([d.Simplex([k], neg[k]) for k in range(m)]
+                               + [d.Simplex([k, (k + 1) % m], max(neg[k], neg[(k + 1) % m])) for k in range(m)])
+        by_hand.sort()
+        neg32 = neg.astype(np.float32)
+        filled = d.fill_freudenthal(neg32)
+        filled.append(d.Simplex([0, m - 1], float(max(neg32[0], neg32[m - 1]))))
+        filled.sort()
+        assert [(sorted(s), s.data) for s in by_hand] == [(sorted(s), s.data) for s in filled]

@@ -10,7 +10,7 @@ import pytest
 
 from metertop.accents import event_weights
 from metertop.events import merge_events
-from metertop.tree import build_tree, cycle_lattice, time_signature_of
+from metertop.tree import Lattice, build_tree, cycle_lattice, time_signature_of
 
 from conftest import TUNES, render_tune
 
@@ -22,6 +22,35 @@ def test_lattice_is_a_multidigraph_of_fractions():
     g = cycle_lattice()
     assert isinstance(g, nx.MultiDiGraph)
     assert all(isinstance(n, F) for n in g.nodes)
+
+
+def test_plain_lattice_walks_as_networkx_does():
+    """Scoring walks a plain-dict Lattice; networkx, the reference, walks the same edges with the same data in the
+    same order (out-edges, and in-edges of every node), so readings are scored in the same order."""
+    from metertop.tree import _lattice
+
+    plain, g = _lattice(), cycle_lattice()
+    assert isinstance(plain, Lattice)
+    assert list(plain.edges(data=True)) == list(g.edges(data=True))
+    for node in g.nodes:
+        assert list(plain.in_edges(node, data=True)) == list(g.in_edges(node, data=True))
+    # The walk order and the node objects themselves (first inserted wins) agree too.
+    assert [tuple(map(id, e[:2])) for e in plain.edges()] == [tuple(map(id, e[:2])) for e in plain.to_networkx().edges()]
+
+
+def test_analysis_does_not_import_networkx():
+    """networkx takes a quarter of a second to import; an analysis needs none of it, only MetricTree.graph does."""
+    import subprocess
+    import sys
+
+    code = ("import sys, numpy as np, metertop; import metertop.cli.app\n"
+            "on = np.arange(24) * 0.5\n"
+            "from metertop.pipeline import analyse_detailed\n"
+            "a = analyse_detailed(on)\n"
+            "assert 'networkx' not in sys.modules, 'networkx imported'\n"
+            "g = a.tree.graph\n"
+            "assert 'networkx' in sys.modules and list(g.nodes)[:3] == ['subdivision', 'beat', 'bar']\n")
+    subprocess.run([sys.executable, "-c", code], check=True)
 
 
 def test_lattice_division_edges():
