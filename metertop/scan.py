@@ -29,7 +29,7 @@ import numpy as np
 
 from .persistence import CircleDiagram, circle_diagram
 
-__all__ = ["WrappedCycle", "wrapped_density", "circular_bumps", "refined_phases", "wrap_cycle", "scan_lengths"]
+__all__ = ["WrappedCycle", "wrapped_density", "circular_bumps", "refined_phases", "wrap_cycle", "wrap_cycles", "scan_lengths"]
 
 _OVERSAMPLE = 4
 
@@ -81,7 +81,14 @@ def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
     """
     ph = np.asarray(phases, dtype=np.float64)
     one = ph.ndim == 1
-    ph = ph[:, None] if one else ph
+    out = _bumps(ph[:, None] if one else ph, weights, n_bins, widths)
+    # Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
+    out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
+    return out[0] if one else out
+
+
+def _bumps(ph: np.ndarray, weights, n_bins: int, widths) -> np.ndarray:
+    """:func:`circular_bumps` of 2-d phases, before the ripples are cleared."""
     n, j = ph.shape
     w = np.asarray(weights, dtype=np.float64)
     widths = np.broadcast_to(np.asarray(widths, dtype=np.float64), (j,))
@@ -94,10 +101,7 @@ def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
     index = np.concatenate(((base + lo % fine).ravel(), (base + (lo + 1) % fine).ravel()))
     mass = np.concatenate(((w[:, None] * (1 - frac)).ravel(), (w[:, None] * frac).ravel()))
     hist = np.bincount(index, weights=mass, minlength=j * fine).reshape(j, fine)
-    out = np.fft.irfft(np.fft.rfft(hist, axis=1) * _kernel_spectrum(fine, widths), n=fine, axis=1)[:, ::_OVERSAMPLE]
-    # Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
-    out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
-    return out[0] if one else out
+    return np.fft.irfft(np.fft.rfft(hist, axis=1) * _kernel_spectrum(fine, widths), n=fine, axis=1)[:, ::_OVERSAMPLE]
 
 
 def wrapped_density(positions, weights, length: float, n_bins: int, width: float, span: float | None = None) -> np.ndarray:
@@ -243,6 +247,46 @@ def wrap_cycle(positions, weights, length: float, bins_per_unit: int = 12, width
     width = max(width_units / length, 2.5 / n_bins if n_bins == max_bins else 0.0)
     dens = wrapped_density(positions, weights, length, n_bins, width, span=span)
     return WrappedCycle(float(length), dens, circle_diagram(dens, engine=engine))
+
+
+def wrap_cycles(positions, weights, lengths, bins_per_unit: int = 12, width_units: float = 0.07, spans=None,
+                engine: str = "dionysus", max_bins: int = 240) -> list[WrappedCycle]:
+    """:func:`wrap_cycle` at each of ``lengths`` (with its own ``span``), the same cycles, but the densities of
+    the lengths that share a bin count are computed together, as rows of one transform.
+
+    Examples
+    --------
+    >>> x, w = [0, 1, 2, 3, 4, 5], [2, 1, 1, 2, 1, 1]
+    >>> a = wrap_cycles(x, w, [3.0, 6.0], spans=[8.0, 11.0])
+    >>> all(np.array_equal(c.density, wrap_cycle(x, w, L, span=sp).density) for c, L, sp in zip(a, [3.0, 6.0], [8.0, 11.0]))
+    True
+    """
+    x = np.asarray(positions, dtype=np.float64)
+    w = np.asarray(weights, dtype=np.float64)
+    lengths = [float(L) for L in lengths]
+    if spans is None:
+        spans = [None] * len(lengths)
+    if len(x) == 0:
+        return [wrap_cycle(x, w, L, bins_per_unit, width_units, sp, engine, max_bins) for L, sp in zip(lengths, spans)]
+    by_bins: dict = {}
+    for i, length in enumerate(lengths):
+        n_bins = int(min(max(np.ceil(length * bins_per_unit), 12), max_bins))
+        by_bins.setdefault(n_bins, []).append(i)
+    out: list = [None] * len(lengths)
+    for n_bins, rows in by_bins.items():
+        # The same numbers as wrap_cycle and wrapped_density, one row per length.
+        ls = np.array([lengths[i] for i in rows])
+        widths = np.array([max(width_units / lengths[i], 2.5 / n_bins if n_bins == max_bins else 0.0) for i in rows])
+        dens = _bumps(x[:, None] / ls[None, :], w, n_bins, widths)
+        for r, i in enumerate(rows):
+            row = dens[r]
+            row[np.abs(row) <= 1e-12 * max(float(np.abs(row).max()), 1e-300)] = 0.0
+            length, span = lengths[i], spans[i]
+            if span is None:
+                span = x.max() - x.min() + length
+            row = row / max(span / length, 1.0)
+            out[i] = WrappedCycle(float(length), row, circle_diagram(row, engine=engine))
+    return out
 
 
 def scan_lengths(positions, weights, lengths, **kwargs) -> list[WrappedCycle]:

@@ -64,7 +64,7 @@ from functools import cached_property, lru_cache
 import numpy as np
 
 from .model import ReadingModel, default_model
-from .scan import WrappedCycle, wrap_cycle
+from .scan import WrappedCycle, wrap_cycle, wrap_cycles
 
 __all__ = ["TreeSettings", "Candidate", "MetricTree", "Lattice", "cycle_lattice", "build_tree", "promote", "time_signature_of"]
 
@@ -367,6 +367,16 @@ class _Scanner:
             self.cache[length] = wrap_cycle(self.positions, self.weights, float(length), bins_per_unit=int(np.clip(np.ceil(2.5 / width), 12, 48)),
                                             width_units=width, span=span, engine=self.engine)
         return self.cache[length]
+
+    def wrap_all(self, lengths) -> None:
+        """Wrap every length not yet cached, those of equal bin count together (the same cycles as one call each)."""
+        todo = list(dict.fromkeys(L for L in lengths if L not in self.cache))
+        if not todo:
+            return
+        width = self.width_pulses
+        cycles = wrap_cycles(self.positions, self.weights, todo, bins_per_unit=int(np.clip(np.ceil(2.5 / width), 12, 48)),
+                             width_units=width, spans=[self.span + float(L) for L in todo], engine=self.engine)
+        self.cache.update(zip(todo, cycles))
 
 
 def _snap_unit(*lengths: Fraction) -> Fraction:
@@ -719,8 +729,32 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     x = np.asarray(positions, dtype=np.float64)
     scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
     lattice = _DEFAULT_LATTICE if lattice is None else lattice
-    span_pulses = scan.span
+    readings = list(_readings(lattice, s, pulse_s, scan.span))
+    # The cycles the readings measure, wrapped together (_score_reading reads them from the cache).
+    lengths = []
+    for beat, div, n, grouping, tatum, bar in readings:
+        lengths.append(bar)
+        if grouping is None and n == 4:
+            lengths.append(bar / 2)
+        if 2 * float(bar) <= scan.span / 1.5:
+            lengths.append(2 * bar)
+        lengths += [beat] if grouping is None else [tatum * k for k in grouping]
+    scan.wrap_all(lengths)
     cands: list[Candidate] = []
+    for beat, div, n, grouping, tatum, bar in readings:
+        cands += _score_reading(scan, beat, div, n, grouping, tatum, bar, pulse_s, s, drums)
+    if not cands:
+        raise ValueError("no reading fits the tempo range")
+    cands.sort(key=lambda c: -c.score)
+    p = s.model.probabilities([c.score for c in cands])
+    best = cands[0]
+    hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
+    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
+    return MetricTree(cands, p, graph, scan.cache, hyper)
+
+
+def _readings(lattice, s: TreeSettings, pulse_s: float, span_pulses: float):
+    """The readings of the lattice within the tempo range and the piece: (beat, division, beats, grouping, tatum, bar)."""
     for lo, hi, data in lattice.edges(data=True):
         bar_s = float(hi) * pulse_s
         if bar_s > s.max_bar_s or float(hi) > span_pulses / 1.5:
@@ -735,22 +769,13 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
                 div = d2["ratio"]
                 if (n == 1 and div == 2) or (n == 5 and div == 3):
                     continue  # a bar of one simple beat is the beat itself; 15/8 is too rare to propose
-                cands += _score_reading(scan, beat, div, n, None, sub, hi, pulse_s, s, drums)
+                yield beat, div, n, None, sub, hi
         elif data["kind"] == "additive":
             tatum = lo
             if not 0.12 <= float(tatum) * pulse_s <= 0.5:
                 continue
             grouping = data["grouping"]
-            beat = F(int(np.median(grouping))) * tatum
-            cands += _score_reading(scan, beat, None, len(grouping), grouping, tatum, hi, pulse_s, s, drums)
-    if not cands:
-        raise ValueError("no reading fits the tempo range")
-    cands.sort(key=lambda c: -c.score)
-    p = s.model.probabilities([c.score for c in cands])
-    best = cands[0]
-    hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
-    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
-    return MetricTree(cands, p, graph, scan.cache, hyper)
+            yield F(int(np.median(grouping))) * tatum, None, len(grouping), grouping, tatum, hi
 
 
 def promote(tree: MetricTree, index: int, positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(),

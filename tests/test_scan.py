@@ -114,3 +114,21 @@ def test_contrast_and_persistence_at():
     assert at[0] == pytest.approx(1.0)
     assert 0 < at[1] < 0.5 and 0 < at[2] < 0.5
     assert at[3] == 0.0
+
+
+def test_wrap_cycles_equals_wrap_cycle_one_by_one():
+    """Lengths wrapped together (rows of one transform per bin count) give exactly the cycles of one call each."""
+    from metertop.scan import wrap_cycles
+
+    rng = np.random.default_rng(4)
+    x = np.sort(rng.uniform(0, 40, 90))
+    w = rng.uniform(0.2, 2.0, 90)
+    lengths = [0.5, 1.0, 4 / 3, 2.0, 3.0, 3.0, 6.0, 8.0, 12.0, 16.0]
+    spans = [40.0 + L for L in lengths]
+    together = wrap_cycles(x, w, lengths, bins_per_unit=24, width_units=0.04, spans=spans)
+    for c, L, sp in zip(together, lengths, spans):
+        alone = wrap_cycle(x, w, L, bins_per_unit=24, width_units=0.04, span=sp)
+        assert c.length == alone.length
+        assert np.array_equal(c.density, alone.density)
+        assert np.array_equal(c.diagram.peaks, alone.diagram.peaks)
+        assert np.array_equal(c.diagram.births, alone.diagram.births) and np.array_equal(c.diagram.deaths, alone.diagram.deaths)
