@@ -51,7 +51,7 @@ from fractions import Fraction
 import numpy as np
 
 from .tempo import viterbi_path
-from .tree import ADDITIVE, Candidate, Lattice, MetricTree, TreeSettings, _margin, _Scanner, build_tree
+from .tree import ADDITIVE, Candidate, Lattice, MetricTree, TreeSettings, _margin, _Scanner, _scored
 
 __all__ = ["SegmentSettings", "SegmentReading", "find_segments"]
 
@@ -118,13 +118,14 @@ def _score_of(cands: list[Candidate], state: Candidate, tol: float) -> float | N
     return best
 
 
-def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience=None) -> MetricTree | None:
+def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience=None) -> list[Candidate] | None:
+    """The readings of the events in [lo, hi), scored and best first (as :func:`metertop.tree.build_tree` scores
+    them; the tree and hypermeasure of the span are not needed), or None for a span too short or too sparse."""
     sel = (x >= lo) & (x < hi)
     if sel.sum() < 6:
         return None
     try:
-        return build_tree(x[sel], w[sel], pulse_s, tree_settings, engine=engine, drums=drums, lattice=lattice,
-                          period_salience=period_salience)
+        return _scored(x[sel], w[sel], pulse_s, tree_settings, engine, drums, period_salience, lattice)[1]
     except ValueError:
         return None  # no reading fits so short a span
 
@@ -295,8 +296,8 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     wstarts = np.arange(first, x1 - width / 2, hop)
     windows = []
     for lo in wstarts:
-        t = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice, period_salience)
-        windows.append(t.candidates if t is not None else [])
+        cands = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice, period_salience)
+        windows.append(cands if cands is not None else [])
     states = [main]
     for cands in windows:
         if cands and not any(_compatible(cands[0], st) for st in states):
@@ -347,14 +348,14 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
 def _log_odds(x, w, lo, hi, state, other, pulse_s, tree_settings, engine, drums, lattice, temperature,
               period_salience=None) -> float | None:
     """How much better ``state`` explains [lo, hi) than ``other``, scored by the model on that span alone."""
-    t = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience)
-    if t is None:
+    cands = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience)
+    if cands is None:
         return None
-    own = _score_of(t.candidates, state, 0.25 * _unit(state))
+    own = _score_of(cands, state, 0.25 * _unit(state))
     if own is None:
         return None
-    theirs = _score_of(t.candidates, other, 0.25 * _unit(other))
-    floor = min(c.score for c in t.candidates)
+    theirs = _score_of(cands, other, 0.25 * _unit(other))
+    floor = min(c.score for c in cands)
     return (own - (theirs if theirs is not None else floor)) / temperature
 
 

@@ -726,6 +726,18 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         The readings to score (:func:`cycle_lattice`); all by default.
     """
     s = settings
+    scan, cands, p = _scored(positions, weights, pulse_s, s, engine, drums, period_salience, lattice)
+    best = cands[0]
+    hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
+    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
+    return MetricTree(cands, p, graph, scan.cache, hyper)
+
+
+def _scored(positions, weights, pulse_s: float, s: TreeSettings, engine: str, drums: bool, period_salience, lattice):
+    """The scanner, the scored readings (best first) and their probabilities: :func:`build_tree` without the tree.
+
+    Raises ValueError when no reading fits the tempo range.
+    """
     x = np.asarray(positions, dtype=np.float64)
     scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
     lattice = _DEFAULT_LATTICE if lattice is None else lattice
@@ -746,11 +758,7 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
     if not cands:
         raise ValueError("no reading fits the tempo range")
     cands.sort(key=lambda c: -c.score)
-    p = s.model.probabilities([c.score for c in cands])
-    best = cands[0]
-    hyper, hyper_score, hyper_start = _hypermeasure(scan, best, s)
-    graph = _tree_graph(best, cands, p, scan, hyper, hyper_score, hyper_start)
-    return MetricTree(cands, p, graph, scan.cache, hyper)
+    return scan, cands, s.model.probabilities([c.score for c in cands])
 
 
 def _readings(lattice, s: TreeSettings, pulse_s: float, span_pulses: float):
