@@ -62,6 +62,7 @@ import networkx as nx
 import numpy as np
 
 from .model import ReadingModel, default_model
+from .repetition import BarRepetition
 from .scan import WrappedCycle, wrap_cycle
 
 __all__ = ["TreeSettings", "Candidate", "MetricTree", "cycle_lattice", "build_tree", "promote", "time_signature_of"]
@@ -181,6 +182,7 @@ class _Scanner:
     period_salience: tuple[np.ndarray, np.ndarray] | None = None
     cache: dict = field(default_factory=dict)
     grids: dict = field(default_factory=dict)
+    repetition: BarRepetition | None = None
 
     def __post_init__(self) -> None:
         self.lo, self.hi = float(self.positions.min()), float(self.positions.max())
@@ -236,6 +238,10 @@ class _Scanner:
         if not np.log(periods[0]) - 1e-9 <= lp <= np.log(periods[-1]) + 1e-9:
             return 0.0
         return float(np.interp(lp, np.log(periods), profile))
+
+    def repeat(self, length: float) -> float:
+        """Share of the notes that recur one ``length`` later (:mod:`metertop.repetition`); 0 without notes."""
+        return 0.0 if self.repetition is None else self.repetition.share(length)
 
     def __call__(self, length: Fraction) -> WrappedCycle:
         if length not in self.cache:
@@ -396,6 +402,7 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
         if division == 3 and s.compound_beat_reference_s is not None:
             reference_s = s.compound_beat_reference_s
         log_beat = float(np.log2(beat_s / reference_s))
+        repeat = scan.repeat(L) if drums else 0.0
         features = {
             "bar": float(bar_term), "half_bar": float(half_term), "double_bar": float(double_term),
             "beat": float(beat_term), "division": float(division_term),
@@ -416,6 +423,10 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             "drums_beats2": float(drums and family == "simple" and n == 2),
             "drums_beats4": float(drums and family == "simple" and n == 4),
             "drums_compound": float(drums and family == "compound"),
+            # A kit's pattern comes back one bar later, and a true bar's
+            # double adds little to that (metertop.repetition).
+            "drums_repeat": repeat,
+            "drums_repeat_double": (scan.repeat(2 * L) - repeat) if drums else 0.0,
         }
         out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), features, s.model.score(features)))
     return out
@@ -478,7 +489,7 @@ def _agree(a: Candidate, b: Candidate, level: str) -> bool:
 
 def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = TreeSettings(), engine: str = "dionysus",
                drums: bool = False, period_salience: tuple[np.ndarray, np.ndarray] | None = None,
-               lattice: nx.MultiDiGraph | None = None) -> MetricTree:
+               lattice: nx.MultiDiGraph | None = None, repetition: BarRepetition | None = None) -> MetricTree:
     """Score every reading of the cycle lattice and assemble the best metric tree.
 
     Parameters
@@ -498,10 +509,13 @@ def build_tree(positions, weights, pulse_s: float, settings: TreeSettings = Tree
         ``beat_salience`` feature; without it the feature is 0.
     lattice : networkx.MultiDiGraph, optional
         The readings to score (:func:`cycle_lattice`); all by default.
+    repetition : BarRepetition, optional
+        The notes' bar-lag repetition in the same pulse time, for the
+        ``drums_repeat`` features of a drum kit; without it they are 0.
     """
     s = settings
     x = np.asarray(positions, dtype=np.float64)
-    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience)
+    scan = _Scanner(x, np.asarray(weights, dtype=np.float64), s, engine, pulse_s, period_salience, repetition=repetition)
     lattice = cycle_lattice() if lattice is None else lattice
     span_pulses = scan.span
     cands: list[Candidate] = []
