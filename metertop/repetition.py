@@ -73,7 +73,7 @@ class BarRepetition:
         if x.shape != k.shape:
             raise ValueError("positions and keys differ in length")
         self.tolerance = float(tolerance)
-        self._cache: dict[float, float] = {}
+        self._cache: dict[float, np.ndarray] = {}
         if len(x) == 0:
             self._x = self._k = np.zeros(0)
             self._end = 0.0
@@ -86,31 +86,49 @@ class BarRepetition:
         # reaches from one key's notes into the next key's.
         self._stride = float(x.max() - x.min()) * 3 + 1e3
         self._line = self._x + self._k * self._stride
-        self._n_keys = int(self._k.max()) + 1
 
     def share(self, length: float) -> float:
         """Mean over the keys of the share of eligible notes that recur ``length`` pulses later (0 if no key votes)."""
+        shares = self.key_shares(length)
+        voting = ~np.isnan(shares)
+        return float(shares[voting].mean()) if voting.any() else 0.0
+
+    def key_shares(self, length: float) -> np.ndarray:
+        """Each key's share of eligible notes that recur ``length`` pulses later; NaN for a key that does not vote."""
         L = round(float(length), 9)
         if L not in self._cache:
-            self._cache[L] = self._share(L)
+            self._cache[L] = self._key_shares(L)
         return self._cache[L]
 
-    def _share(self, L: float) -> float:
+    def _key_shares(self, L: float) -> np.ndarray:
+        n_keys = int(self._k.max()) + 1 if len(self._k) else 0
+        out = np.full(n_keys, np.nan)
         if len(self._x) < 2 or L <= 0:
-            return 0.0
+            return out
         eligible = self._x + L <= self._end + self.tolerance
         if not eligible.any():
-            return 0.0
+            return out
         target = self._line[eligible] + L
         i = np.clip(np.searchsorted(self._line, target), 1, len(self._line) - 1)
         miss = np.minimum(np.abs(self._line[i - 1] - target), np.abs(self._line[i] - target))
         keys = self._k[eligible]
-        counts = np.bincount(keys, minlength=self._n_keys)
-        hits = np.bincount(keys, weights=(miss <= self.tolerance).astype(float), minlength=self._n_keys)
+        counts = np.bincount(keys, minlength=n_keys)
+        hits = np.bincount(keys, weights=(miss <= self.tolerance).astype(float), minlength=n_keys)
         voting = counts >= 2
-        if not voting.any():
-            return 0.0
-        return float(np.mean(hits[voting] / counts[voting]))
+        out[voting] = hits[voting] / counts[voting]
+        return out
+
+    def phrase_gain(self, bar: float, bars: int) -> float:
+        """How much more of the kit recurs ``bars`` bars later than one bar later.
+
+        The mean over the keys that vote at both lags of the share's rise,
+        ``max(share(bars * bar) - share(bar), 0)``: a key that plays the same
+        in every bar adds nothing, a crash that marks every fourth bar adds
+        its whole share at four bars and at eight, none at two or three.
+        """
+        one, many = self.key_shares(bar), self.key_shares(bars * bar)
+        both = ~np.isnan(one) & ~np.isnan(many)
+        return float(np.maximum(many[both] - one[both], 0.0).mean()) if both.any() else 0.0
 
     def window(self, lo: float, hi: float) -> "BarRepetition":
         """The same measure over the notes in ``[lo, hi)`` only."""

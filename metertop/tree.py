@@ -88,6 +88,12 @@ class TreeSettings:
     min_width_pulses: float = 0.03
     phase_candidates: int = 3
     hyper_min_evidence: float = 0.15
+    # Drum kits (_kit_hypermeasure): the least phrase gain, and the share of
+    # the best gain at which a shorter hypermeasure still wins (a phrase of
+    # four bars comes back after eight too). Chosen on a grid over 200
+    # training grooves (seed 777): 0.87 right, flat for 0.05-0.1 and 0.3-0.4.
+    hyper_min_gain: float = 0.05
+    hyper_near_best: float = 0.4
     model: ReadingModel = field(default_factory=default_model)
 
 
@@ -587,6 +593,8 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     tol = min(0.25 * float(best.beat) / bar, 0.12)
     otol = 0.25 * float(best.tatum if best.grouping else best.beat / best.division)
     best_k, best_ev, best_start = None, 0.0, best.downbeat_pulses
+    if scan.repetition is not None:
+        return _kit_hypermeasure(scan, best, s, otol)
     for k in (2, 3, 4, 8):
         length = bar * k
         if 3 * length > span:
@@ -602,6 +610,27 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     if best_ev < s.hyper_min_evidence:
         return None, best_ev, best_start
     return best_k, best_ev, best_start
+
+
+def _kit_hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings, otol: float) -> tuple[int | None, float, float]:
+    """For a drum kit: the fewest bars at which the kit's phrase marks (a crash, a fill) come back.
+
+    Evidence for ``k`` bars is :meth:`~metertop.repetition.BarRepetition.phrase_gain`,
+    what recurs ``k`` bars later beyond what recurs every bar; ``k`` needs
+    two whole cycles in the piece. The smallest ``k`` whose evidence reaches
+    ``hyper_near_best`` times the best wins (a phrase of four bars also
+    comes back after eight), if the best reaches ``hyper_min_gain``. The
+    start is the bar downbeat that weighs most, cycle by cycle.
+    """
+    bar = float(best.bar)
+    gains = {k: scan.repetition.phrase_gain(bar, k) for k in (2, 3, 4, 8) if 2 * k * bar <= scan.span + bar}
+    top = max(gains.values(), default=0.0)
+    if top < s.hyper_min_gain:
+        return None, top, best.downbeat_pulses
+    k = min(k for k, g in gains.items() if g >= max(s.hyper_min_gain, s.hyper_near_best * top))
+    length = bar * k
+    j = int(np.argmax(scan.grid_weights(best.downbeat_pulses, length, np.arange(k) * bar, otol).mean(axis=0)))
+    return k, gains[k], float((best.downbeat_pulses + j * bar) % length)
 
 
 def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score, hyper_start) -> nx.DiGraph:

@@ -63,3 +63,41 @@ def test_windows_and_empty_input():
     assert note_keys([42], [True])[0] != note_keys([42], [False])[0]
     with pytest.raises(ValueError):
         BarRepetition([0.0, 1.0], [1])
+
+
+def test_phrase_gain_closed_form():
+    """Kick on every downbeat, crash on every fourth: the crash's share rises from 0 (one bar) to 1 (four or eight
+    bars), the kick's stays 1, so the mean rise over the two keys is exactly 1/2 at 4 and 8 bars and 0 at 2 and 3."""
+    bar = 4.0
+    kicks = np.arange(32) * bar
+    crashes = np.arange(0, 32, 4) * bar
+    rep = BarRepetition(np.concatenate([kicks, crashes]), np.concatenate([np.full(32, 36), np.full(8, 49)]))
+    assert rep.phrase_gain(bar, 4) == pytest.approx(0.5) and rep.phrase_gain(bar, 8) == pytest.approx(0.5)
+    assert rep.phrase_gain(bar, 2) == 0.0 and rep.phrase_gain(bar, 3) == 0.0
+
+
+def test_a_kit_marking_every_fourth_bar_gets_a_four_bar_hypermeasure():
+    """A 4/4 kit pattern (common practice: kick on 1 and 3, snare on 2 and 4, eighth-note hi-hat) at 120 bpm, with a
+    crash on the first downbeat of every four bars: the hypermeasure is four bars long and starts on a crash."""
+    import dataclasses
+
+    import metertop
+    from metertop.load import notes_from_onsets
+
+    beat = 0.5
+    rows = []
+    for b in range(32):
+        t0 = b * 4 * beat
+        rows += [(t0, 36), (t0 + 2 * beat, 36), (t0 + beat, 38), (t0 + 3 * beat, 38)]
+        rows += [(t0 + k * beat / 2, 42) for k in range(8)]
+        if b % 4 == 0:
+            rows.append((t0, 49))
+    rows.sort()
+    on = np.array([r[0] for r in rows])
+    pitch = np.array([r[1] for r in rows])
+    notes = dataclasses.replace(notes_from_onsets(on, pitches=pitch), is_drum=np.ones(len(on), bool))
+    r = metertop.analyse(notes)
+    assert r.time_signature == "4/4"
+    h = r.level("hypermeasure")
+    assert h is not None and h.period_s == pytest.approx(4 * 4 * beat, rel=0.02)
+    assert (h.phase_s / (4 * 4 * beat)) == pytest.approx(round(h.phase_s / (4 * 4 * beat)), abs=0.02)
