@@ -433,6 +433,8 @@ def _score_reading(scan: _Scanner, beat, division, n, grouping, tatum, bar, puls
             # double adds little to that (metertop.repetition).
             "drums_repeat": repeat,
             "drums_repeat_double": (scan.repeat(2 * L) - repeat) if drums else 0.0,
+            # ... and a bar of two or four beats recurs more than its half.
+            "drums_repeat_half": (repeat - scan.repeat(L / 2)) if drums and grouping is None and n in (2, 4) else 0.0,
         }
         out.append(Candidate(beat, division, n, grouping, tatum, bar, float(x0), features, s.model.score(features)))
     return out
