@@ -86,12 +86,23 @@ class BarRepetition:
         # reaches from one key's notes into the next key's.
         self._stride = float(x.max() - x.min()) * 3 + 1e3
         self._line = self._x + self._k * self._stride
+        self._per_key = np.bincount(self._k).astype(float)
+        self._span = float(x.max() - x.min())
 
     def share(self, length: float) -> float:
-        """Mean over the keys of the share of eligible notes that recur ``length`` pulses later (0 if no key votes)."""
+        """Mean over the keys of the share of eligible notes that recur ``length`` pulses later (0 if no key votes).
+
+        A key's vote weighs its notes per cycle of ``length``, at most 1: a
+        crash that marks every fourth bar has a quarter of a vote at bar
+        length, so the phrase marks do not pull the bar to the phrase.
+        """
         shares = self.key_shares(length)
         voting = ~np.isnan(shares)
-        return float(shares[voting].mean()) if voting.any() else 0.0
+        if not voting.any():
+            return 0.0
+        cycles = max(self._span / float(length), 1.0)
+        weight = np.minimum(self._per_key[voting] / cycles, 1.0)
+        return float(np.dot(shares[voting], weight) / weight.sum())
 
     def key_shares(self, length: float) -> np.ndarray:
         """Each key's share of eligible notes that recur ``length`` pulses later; NaN for a key that does not vote."""

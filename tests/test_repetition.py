@@ -16,9 +16,10 @@ import pytest
 from metertop.repetition import BarRepetition, note_keys
 
 
-def _reference_share(grid_rows: dict, lag: int) -> float:
-    """Mean over keys of autocorrelation(lag) / eligible onsets, from numpy.correlate on binary sequences."""
-    shares = []
+def _reference_share(grid_rows: dict, lag: int, span: float) -> float:
+    """Mean over keys of autocorrelation(lag) / eligible onsets, from numpy.correlate on binary sequences; each key's
+    vote weighs its onsets per cycle of ``lag`` over ``span``, at most 1 (the definition in BarRepetition.share)."""
+    shares, weights = [], []
     length = max(len(r) for r in grid_rows.values())
     last = max(int(np.flatnonzero(r).max()) for r in grid_rows.values())
     for row in grid_rows.values():
@@ -28,7 +29,8 @@ def _reference_share(grid_rows: dict, lag: int) -> float:
         eligible = int(seq[: max(last - lag + 1, 0)].sum())
         if eligible >= 2:
             shares.append(ac[lag] / eligible)
-    return float(np.mean(shares))
+            weights.append(min(seq.sum() / max(span / lag, 1.0), 1.0))
+    return float(np.dot(shares, weights) / np.sum(weights))
 
 
 @pytest.mark.parametrize("seed", range(5))
@@ -40,9 +42,10 @@ def test_share_equals_autocorrelation_on_a_grid(seed):
     pos = np.concatenate([np.flatnonzero(r).astype(float) for r in rows.values()])
     keys = np.concatenate([np.full(int(r.sum()), k) for k, r in rows.items()])
     # Small timing noise, well inside the tolerance, must not change a count.
-    rep = BarRepetition(pos + rng.uniform(-0.04, 0.04, len(pos)), keys, tolerance=0.15)
+    noisy = pos + rng.uniform(-0.04, 0.04, len(pos))
+    rep = BarRepetition(noisy, keys, tolerance=0.15)
     for lag in (1, 2, 3, 4, 6, 8, 12):
-        assert rep.share(lag) == pytest.approx(_reference_share(rows, lag), abs=1e-12)
+        assert rep.share(lag) == pytest.approx(_reference_share(rows, lag, np.ptp(noisy)), abs=1e-12)
 
 
 def test_a_pattern_recurs_at_its_bar_and_not_between():
