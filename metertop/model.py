@@ -20,6 +20,11 @@ a conditional logit model.
   division), and for drum kits ``drums_beats2``, ``drums_beats4``,
   ``drums_compound`` and the evidence again (``drums_bar``, ...), so that
   drum grooves can weigh it differently from melodies.
+- Repetition, for drum kits: ``drums_repeat``, the share of each key's
+  notes that recur one bar later (:mod:`metertop.repetition`), and
+  ``drums_repeat_double``, what a bar of twice the length adds to it, and
+  ``drums_repeat_half``, what a bar of two or four beats adds to its half
+  (with nothing added, the shorter bar is the simpler reading).
 
 The coefficients ship as JSON in ``metertop/data/reading_model.json``. The
 file in the repository was fitted by ``bench/train.py`` on the training
@@ -45,13 +50,15 @@ FEATURES = PERSISTENCE_FEATURES + (
     "support", "log_beat", "log_beat_sq",
     "compound", "single", "irregular", "beats2", "beats3", "beats4", "beats5",
     "compound_unheard", "drums_beats2", "drums_beats4", "drums_compound",
+    "drums_repeat", "drums_repeat_double", "drums_repeat_half",
 )
 
 # The weights chosen by hand before any fit (see docs/method.md).
 HAND_SET = {
     "weights": {"bar": 1.0, "half_bar": 0.6, "beat": 0.6, "division": 0.35, "unexplained": -1.0, "support": 0.5,
                 "log_beat": 0.0, "log_beat_sq": -0.4, "single": -0.15, "irregular": -0.15,
-                "compound_unheard": -0.1, "drums_beats2": -0.2},
+                "compound_unheard": -0.1, "drums_beats2": -0.2, "drums_repeat": 2.0, "drums_repeat_double": -1.0,
+                "drums_repeat_half": 0.25},
     "temperature": 0.12,
     "fitted_on": "hand-set",
 }

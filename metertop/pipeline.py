@@ -23,6 +23,7 @@ from .errors import InputError
 from .events import merge_events
 from .limits import check_note_count, check_span
 from .load import NoteTable, load_notes, notes_from_onsets
+from .repetition import BarRepetition, note_keys
 from .result import Level, MetreResult, Reading, Segment, make_result
 from .segments import SegmentReading, SegmentSettings, find_segments
 from .tempo import PulseTrack, TempoSettings, track_pulse
@@ -135,11 +136,19 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     tau = pulse.warp(t)
     pulse_s = pulse.median_period_s
     salience = pulse.salience_profile()
-    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums, period_salience=salience)
+    repetition = _kit_repetition(notes, pulse) if events.has_drums else None
+    tree = build_tree(tau, w, pulse_s, settings.tree, engine=settings.engine, drums=events.has_drums, period_salience=salience,
+                      repetition=repetition)
     segments = find_segments(tau, w, pulse_s, tree, settings.tree, settings.engine, events.has_drums, settings.segments,
-                             period_salience=salience)
+                             period_salience=salience, repetition=repetition)
     result = _assemble(notes, t, pulse, tree, settings, segments)
     return Analysis(result, t, w, pulse, tree, notes, settings)
+
+
+def _kit_repetition(notes: NoteTable, pulse: PulseTrack) -> BarRepetition:
+    """The bar-lag repetition of the drum kit's notes, in pulse time (the kit carries the pattern; a melody's pitches rarely recur a bar later)."""
+    kit = np.asarray(notes.is_drum, dtype=bool)
+    return BarRepetition(pulse.warp(notes.onsets_s[kit]), note_keys(notes.pitches[kit], notes.is_drum[kit]))
 
 
 def choose_reading(analysis: Analysis, *, rank: int | None = None, time_signature: str | None = None) -> Analysis:

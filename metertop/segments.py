@@ -51,6 +51,7 @@ from fractions import Fraction
 import numpy as np
 
 from .tempo import viterbi_path
+from .repetition import BarRepetition
 from .tree import ADDITIVE, Candidate, Lattice, MetricTree, TreeSettings, _margin, _Scanner, _scored
 
 __all__ = ["SegmentSettings", "SegmentReading", "find_segments"]
@@ -118,14 +119,16 @@ def _score_of(cands: list[Candidate], state: Candidate, tol: float) -> float | N
     return best
 
 
-def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience=None) -> list[Candidate] | None:
+def _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience=None,
+               repetition: BarRepetition | None = None) -> list[Candidate] | None:
     """The readings of the events in [lo, hi), scored and best first (as :func:`metertop.tree.build_tree` scores
     them; the tree and hypermeasure of the span are not needed), or None for a span too short or too sparse."""
     sel = (x >= lo) & (x < hi)
     if sel.sum() < 6:
         return None
     try:
-        return _scored(x[sel], w[sel], pulse_s, tree_settings, engine, drums, period_salience, lattice)[1]
+        return _scored(x[sel], w[sel], pulse_s, tree_settings, engine, drums, period_salience, lattice,
+                       None if repetition is None else repetition.window(lo, hi))[1]
     except ValueError:
         return None  # no reading fits so short a span
 
@@ -245,7 +248,8 @@ def _compatible(a: Candidate, b: Candidate) -> bool:
 
 def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_settings: TreeSettings = TreeSettings(),
                   engine: str = "dionysus", drums: bool = False, settings: SegmentSettings = SegmentSettings(),
-                  period_salience: tuple[np.ndarray, np.ndarray] | None = None) -> list[SegmentReading]:
+                  period_salience: tuple[np.ndarray, np.ndarray] | None = None,
+                  repetition: BarRepetition | None = None) -> list[SegmentReading]:
     """Split the piece where its metre changes (see the module notes).
 
     Parameters
@@ -263,6 +267,9 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
         The pulse scan's salience profile, as given to the whole piece's
         tree (:func:`metertop.tree.build_tree`), so that windows are scored
         with the same features.
+    repetition : BarRepetition, optional
+        The notes' bar-lag repetition, as given to the whole piece's tree;
+        each window sees its own notes' share.
 
     Returns
     -------
@@ -296,7 +303,7 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     wstarts = np.arange(first, x1 - width / 2, hop)
     windows = []
     for lo in wstarts:
-        cands = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice, period_salience)
+        cands = _span_tree(x, w, lo, lo + width, pulse_s, local, engine, drums, lattice, period_salience, repetition)
         windows.append(cands if cands is not None else [])
     states = [main]
     for cands in windows:
@@ -332,7 +339,7 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
         if st is not main:
             long_enough = end - start >= settings.min_bars * float(st.bar) - 0.5 * _unit(st)
             odds = _log_odds(x, w, start, end + 0.5 * _unit(st), st, main, pulse_s, tree_settings, engine, drums, lattice, temperature,
-                                period_salience) \
+                                period_salience, repetition) \
                 if long_enough else None
             if odds is None or odds < settings.min_log_odds:
                 st = out[-1].reading if out else main
@@ -346,9 +353,9 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
 
 
 def _log_odds(x, w, lo, hi, state, other, pulse_s, tree_settings, engine, drums, lattice, temperature,
-              period_salience=None) -> float | None:
+              period_salience=None, repetition=None) -> float | None:
     """How much better ``state`` explains [lo, hi) than ``other``, scored by the model on that span alone."""
-    cands = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience)
+    cands = _span_tree(x, w, lo, hi, pulse_s, tree_settings, engine, drums, lattice, period_salience, repetition)
     if cands is None:
         return None
     own = _score_of(cands, state, 0.25 * _unit(state))

@@ -106,8 +106,9 @@ def test_leading_silence_in_the_file_moves_only_times(grace_midi, grace_result, 
 
 # Share of grooves whose reading survives 5% dropped notes. The target is 95%;
 # `make bench-robust` measures 100 grooves (see the README). This is a
-# regression floor below the measured figure, not the target.
-DROP_FLOOR = 0.70
+# regression floor below the measured figure (20 of 20 since the kit-repetition
+# features; 95 of 100 in bench/robust.py), not the target.
+DROP_FLOOR = 0.85
 N_DROP_GROOVES = 20
 
 
