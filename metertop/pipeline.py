@@ -21,6 +21,7 @@ import numpy as np
 from .accents import AccentMix, event_weights
 from .errors import InputError
 from .events import merge_events
+from .flux import FluxSettings
 from .limits import check_note_count, check_span
 from .load import NoteTable, load_notes, notes_from_onsets
 from .result import Level, MetreResult, Reading, Segment, make_result
@@ -46,6 +47,7 @@ class Settings:
     tree: TreeSettings = field(default_factory=TreeSettings)
     n_alternatives: int = 5
     segments: SegmentSettings = field(default_factory=SegmentSettings)
+    audio: FluxSettings = field(default_factory=FluxSettings)
 
 
 @dataclass(frozen=True)
@@ -66,11 +68,11 @@ class Analysis:
     settings: Settings | None = None
 
 
-def _as_notes(source, tracks) -> NoteTable:
+def _as_notes(source, tracks, audio: FluxSettings | None = None) -> NoteTable:
     if isinstance(source, NoteTable):
         return source
     if isinstance(source, (str, os.PathLike)):
-        return load_notes(source, tracks=tracks)
+        return load_notes(source, tracks=tracks, audio=audio)
     try:
         arr = np.asarray(source, dtype=np.float64)
     except (TypeError, ValueError):
@@ -120,7 +122,7 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     instead of the tracked one: score input makes the pulse exact in note
     values this way (:mod:`metertop.scores`).
     """
-    notes = _as_notes(source, tracks)
+    notes = _as_notes(source, tracks, settings.audio)
     check_note_count(len(notes))
     events = merge_events(notes, settings.merge_window_s)
     t = events.times_s
