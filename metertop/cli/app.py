@@ -74,7 +74,7 @@ def analyse_cmd(
     tune: Optional[List[int]] = typer.Option(None, "--tune", help="Score files: analyse only tune N of an ABC or kern file holding several (repeatable; from 1)."),
     write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the chosen reading."),
     onsets_out: Optional[Path] = typer.Option(None, "--onsets-out", help="Write the onsets analysed (a recording's detected onsets) as a CSV onset list, to inspect, correct and analyse again."),
-    band_weights: Optional[str] = typer.Option(None, "--band-weights", help="Recordings: weight of the low (kick-like), mid (snare-like) and high bands in each onset's strength, as LOW,MID,HIGH (default 1,1,1)."),
+    band_weights: Optional[str] = typer.Option(None, "--band-weights", help="Recordings: weight of the low (kick-like), mid (snare-like) and high bands in each onset's strength, as LOW,MID,HIGH (default 4,2,1)."),
     force: bool = typer.Option(False, "--force", help="Replace output files that exist."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
