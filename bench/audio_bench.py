@@ -122,22 +122,6 @@ def _one(perf: Performance) -> list[dict]:
     return rows
 
 
-def _pool_map(func, items, jobs: int) -> list:
-    import multiprocessing as mp
-
-    out = []
-    start = time.time()
-    with mp.get_context("fork").Pool(jobs) as pool:
-        for k, rows in enumerate(pool.imap_unordered(func, items, chunksize=2), 1):
-            out += rows
-            if sys.stderr.isatty() and (k % 10 == 0 or k == len(items)):
-                rate = k / (time.time() - start)
-                print(f"\r  audio: {k}/{len(items)}, ETA {(len(items) - k) / rate:.0f} s", end="", file=sys.stderr, flush=True)
-    if sys.stderr.isatty():
-        print(file=sys.stderr)
-    return out
-
-
 def figures(rows: list[dict]) -> dict:
     """Per set and version: the metre figures of ``metrics.aggregate``, and the onset F-measure, precision and recall."""
     from metrics import aggregate
@@ -232,7 +216,9 @@ def run_section(n_tunes: int = 100, n_grooves: int = 100, jobs: int | None = Non
     seed = SAMPLE_SEED if split == "eval" else TRAIN_GROOVE_SEED
     start = time.time()
     perfs = build(n_tunes, n_grooves, split, seed)
-    rows = _pool_map(_one, perfs, jobs)
+    from check_bench import _pool_map
+
+    rows = [row for rows_of_one in _pool_map(_one, perfs, jobs, "audio") for row in rows_of_one]
     fig = figures(rows)
     sp = speed() if with_speed else None
     info = (f"Measured {dt.date.today().isoformat()} with `python bench/audio_bench.py --tunes {n_tunes} --grooves {n_grooves}"

@@ -35,11 +35,14 @@ Method
    suppresses small peaks in the decay of a loud onset.
    Peaks closer than ``min_gap_s`` keep only the stronger.
 5. An onset's time is refined by a parabola through the peak and its two
-   neighbours; its strength is the weighted sum of the band fluxes at its
-   frame (``band_weights``), so that kick-like (low) and snare-like (mid)
-   onsets weigh more, as kick and backbeat anchor the bar (common practice).
-   The default 4, 2, 1 was chosen among 1:1:1, 4:2:1 and 10:3:1 on
-   development grooves (``bench/audio_bench.py --split train``).
+   neighbours. Its strength is the weighted sum of the three bands' flux at
+   its frame (``band_weights``), so that kick-like (low) and snare-like
+   (mid) onsets can weigh more, as kick and backbeat anchor the bar (common
+   practice). The default weights 4, 2, 1 were chosen on development grooves
+   (``bench/audio_bench.py --split train``) among 1:1:1, 4:2:1 and 10:3:1.
+   Dividing each band's flux by its number of bins first (a kick's flux
+   sits in a few low bins) found more downbeats but fewer metres there
+   (docs/audio.md), so the flux is summed over the bins as it is.
 
 References
 ----------

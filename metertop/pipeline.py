@@ -86,7 +86,7 @@ def analyse(source, *, tracks: list[int] | None = None, settings: Settings = Set
     Parameters
     ----------
     source : str, os.PathLike, NoteTable or array_like of float
-        A MIDI file or onset list, notes already loaded, or onset times in
+        A MIDI file, onset list or recording, notes already loaded, or onset times in
         seconds.
     tracks : list of int, optional
         MIDI track indices to keep; all by default.
