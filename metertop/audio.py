@@ -18,6 +18,7 @@ Conventions
 from __future__ import annotations
 
 import os
+from dataclasses import replace
 
 import numpy as np
 
@@ -107,10 +108,7 @@ def audio_notes(path: str | os.PathLike, settings: FluxSettings | None = None):
         raise InputError(f"{os.fspath(path)}: {exc}") from None
     times = _decimal(onsets.times_s, "{:.6f}")
     weights = _decimal(np.maximum(onsets.strengths, 1e-6), "{:.6g}")
-    notes = notes_from_onsets(times, weights)
-    from dataclasses import replace
-
-    return replace(notes, source="audio")
+    return replace(notes_from_onsets(times, weights), source="audio")
 
 
 def _decimal(values: np.ndarray, fmt: str) -> np.ndarray:

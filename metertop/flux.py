@@ -342,7 +342,7 @@ def detect_onsets(signal, sample_rate: float, settings: FluxSettings = FluxSetti
     >>> np.round(on.times_s, 2).tolist()
     [0.24, 0.74, 1.24]
     """
-    x = np.asarray(signal, dtype=np.float64 if np.asarray(signal).dtype == np.float64 else np.float32).ravel()
+    x = np.asarray(signal).ravel()
     peak = float(np.max(np.abs(x))) if len(x) else 0.0
     if not np.isfinite(peak):
         raise InputError("the recording holds samples that are not finite numbers")

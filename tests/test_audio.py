@@ -13,7 +13,7 @@ Outside references, each named beside its check:
 - scipy.signal's Butterworth filters (``butter``, ``sosfilt``) for band-limited
   test sounds.
 
-Clips are a few seconds long at 22.05 kHz, so the file stays fast.
+Clips are short (a few seconds to 40 s) and at 22.05 kHz, so the file stays fast.
 """
 
 from __future__ import annotations
