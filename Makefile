@@ -7,7 +7,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.metertop-installed
 
-.PHONY: demo test bench bench-full bench-speed bench-batch bench-check bench-robust install clean-venv check-boost figures
+.PHONY: demo test bench bench-full bench-speed bench-batch bench-check bench-robust bench-audio install clean-venv check-boost figures
 
 install: $(STAMP)
 
@@ -51,3 +51,6 @@ bench-check: $(STAMP)
 
 bench-robust: $(STAMP)
 	$(BIN)/python bench/robust.py
+
+bench-audio: $(STAMP)
+	$(BIN)/python bench/audio_bench.py

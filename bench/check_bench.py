@@ -227,10 +227,10 @@ def markdown(fig: dict, changes: list[dict], info: str) -> str:
     return "\n".join(lines) + "\n"
 
 
-def update_section(path: Path, text: str) -> None:
-    """Replace this benchmark's section of ``path`` (from its heading to the next ``## ``), or append it."""
+def update_section(path: Path, text: str, heading: str = SECTION) -> None:
+    """Replace a benchmark's section of ``path`` (from its ``heading`` to the next ``## ``), or append it."""
     old = path.read_text() if path.exists() else "# Benchmarks\n"
-    pattern = re.compile(re.escape(SECTION) + r".*?(?=^## |\Z)", re.S | re.M)
+    pattern = re.compile(re.escape(heading) + r".*?(?=^## |\Z)", re.S | re.M)
     new = pattern.sub(lambda _: text + "\n", old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
     path.write_text(new)
 

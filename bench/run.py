@@ -71,7 +71,11 @@ def predict_metertop(perf: Performance, settings=None) -> dict:
     notes = perf.note_table()
     start = time.perf_counter()
     r = metertop.analyse(notes) if settings is None else metertop.analyse(notes, settings=settings)
-    seconds = time.perf_counter() - start
+    return result_prediction(r, time.perf_counter() - start)
+
+
+def result_prediction(r, seconds: float) -> dict:
+    """A MetreResult as the prediction dict that ``metrics.evaluate`` scores."""
     hyper = r.level("hypermeasure")
     return {
         "time_signature": r.time_signature, "beats_per_bar": r.beats_per_bar, "beat_division": r.beat_division,
@@ -294,6 +298,10 @@ def main() -> int:
     from check_bench import run_section as check_section  # metertop check and metre changes, on their own sample
 
     check_md, check_figures = check_section(jobs=args.jobs)
+    from audio_bench import run_section as audio_section  # recordings: onsets, metre beside MIDI, speed
+
+    audio_md, audio_figures = audio_section(jobs=args.jobs)
+    audio_figures.pop("rows")
     elapsed = time.time() - t0
     stamp = dt.date.today().isoformat()
     command = "make bench-full" if args.full else "make bench"
@@ -333,6 +341,7 @@ by a model fitted on the persistence features alone (`bench/models/persistence_o
 
 {confusion_md(rows, 'groove', 'metertop')}
 {check_md}
+{audio_md}
 ## The corpus
 
 Tunes left out of every figure are counted here (free metre, other metres, irregular bars, ...):
@@ -349,7 +358,8 @@ Tunes left out of every figure are counted here (free metre, other metres, irreg
     OUT.mkdir(parents=True, exist_ok=True)
     result_path = OUT / f"results-{stamp}{'-full' if args.full else ''}.json"
     result_path.write_text(json.dumps({"date": stamp, "command": command, "info": info, "figures": figures,
-                                       "speed": speed_figures, "check": check_figures, "rows": rows}, indent=1, default=float))
+                                       "speed": speed_figures, "check": check_figures, "audio": audio_figures,
+                                       "rows": rows}, indent=1, default=float))
     print(md_tables)
     print(f"wrote {args.out} and {result_path} in {elapsed:.0f} s", file=sys.stderr)
     return 0

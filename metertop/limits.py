@@ -30,16 +30,16 @@ class LimitError(InputError):
     """The input is readable but larger than metertop analyses at once."""
 
 
-def check_file_size(n_bytes: int) -> None:
-    """Refuse a file larger than :data:`MAX_FILE_BYTES`.
+def check_file_size(n_bytes: int, limit: int = MAX_FILE_BYTES) -> None:
+    """Refuse a file larger than ``limit`` bytes (:data:`MAX_FILE_BYTES`; recordings have their own, in :mod:`metertop.audio`).
 
     >>> check_file_size(40 * 1024 * 1024)
     Traceback (most recent call last):
     ...
     metertop.limits.LimitError: file of 40.0 MB; metertop reads files of at most 32 MB
     """
-    if n_bytes > MAX_FILE_BYTES:
-        raise LimitError(f"file of {n_bytes / 2**20:.1f} MB; metertop reads files of at most {MAX_FILE_BYTES // 2**20} MB")
+    if n_bytes > limit:
+        raise LimitError(f"file of {n_bytes / 2**20:.1f} MB; metertop reads files of at most {limit // 2**20} MB")
 
 
 def check_note_count(n_notes: int, *, at_least: bool = False) -> None:

@@ -16,6 +16,10 @@ Onset lists may be:
 - JSON: an array of numbers, or of objects with ``time_s`` and optionally
   ``weight`` and ``pitch``.
 
+Recordings (WAV, FLAC, OGG; the ``audio`` extra) go through the onset
+detector of :mod:`metertop.flux` (:func:`metertop.audio.audio_notes`): each
+onset becomes a note without pitch whose ``weight`` is its flux strength.
+
 Exact duplicates (same time and pitch) are dropped on loading.
 
 Every problem with the input is an :class:`~metertop.errors.InputError`
@@ -181,8 +185,8 @@ def _check_times(t: np.ndarray, what: str) -> None:
         raise InputError(f"{what} times must not be negative (found {t.min():g} s)")
 
 
-def check_input_file(path: str | os.PathLike) -> str:
-    """The path as a string, if it names an existing, non-empty file; else an InputError."""
+def check_input_file(path: str | os.PathLike, max_bytes: int | None = None) -> str:
+    """The path as a string, if it names an existing, non-empty file of at most ``max_bytes``; else an InputError."""
     path = os.fspath(path)
     if not os.path.exists(path):
         raise InputError(f"{path}: no such file")
@@ -192,31 +196,35 @@ def check_input_file(path: str | os.PathLike) -> str:
     if size == 0:
         raise InputError(f"{path}: file is empty")
     try:
-        check_file_size(size)
+        check_file_size(size) if max_bytes is None else check_file_size(size, max_bytes)
     except LimitError as exc:
         raise LimitError(f"{path}: {exc}") from None
     return path
 
 
-def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> NoteTable:
-    """Read notes from a Standard MIDI File or an onset list.
+def load_notes(path: str | os.PathLike, tracks: list[int] | None = None, audio=None) -> NoteTable:
+    """Read notes from a Standard MIDI File, an onset list or a recording.
 
     Parameters
     ----------
     path
-        A ``.mid``/``.midi`` file, or a ``.csv``/``.tsv``/``.txt``/``.json``
-        onset list.
+        A ``.mid``/``.midi`` file, a ``.csv``/``.tsv``/``.txt``/``.json``
+        onset list, or a ``.wav``/``.flac``/``.ogg`` recording.
     tracks
         MIDI only: indices of the tracks to keep (as listed by
         :func:`list_tracks`); all tracks by default.
+    audio : metertop.flux.FluxSettings, optional
+        Recordings only: the onset detector's settings.
 
     Raises
     ------
     InputError
         If the file is missing, empty, unreadable or holds no notes.
     """
-    path = check_input_file(path)
-    suffix = os.path.splitext(path)[1].lower()
+    from .audio import AUDIO_SUFFIXES, MAX_AUDIO_BYTES, audio_notes, is_audio_file
+
+    suffix = os.path.splitext(os.fspath(path))[1].lower()
+    path = check_input_file(path, MAX_AUDIO_BYTES if suffix in AUDIO_SUFFIXES else None)
     try:
         with open(path, "rb") as fh:
             head = fh.read(4)
@@ -226,12 +234,14 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None) -> Note
         return _load_midi(path, tracks)
     if tracks:
         raise InputError(f"{path}: track selection applies to MIDI files only")
+    if suffix in AUDIO_SUFFIXES or (suffix not in ONSET_SUFFIXES + SCORE_SUFFIXES and is_audio_file(path, head)):
+        return audio_notes(path, audio)
     if suffix in ONSET_SUFFIXES or suffix == "":
         return _load_onset_list(path)
     if suffix in SCORE_SUFFIXES:
         raise InputError(f"{path}: a score file; scores are read per tune by metertop.scores.analyse_score")
-    raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}), an onset list ({', '.join(ONSET_SUFFIXES)}) "
-                     f"or a score ({', '.join(SCORE_SUFFIXES)})")
+    raise InputError(f"{path}: unsupported file type '{suffix}'; expected MIDI ({', '.join(MIDI_SUFFIXES)}), an onset list ({', '.join(ONSET_SUFFIXES)}), "
+                     f"a recording ({', '.join(AUDIO_SUFFIXES)}) or a score ({', '.join(SCORE_SUFFIXES)})")
 
 
 def _open_midi(path: str):

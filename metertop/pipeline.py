@@ -21,6 +21,7 @@ import numpy as np
 from .accents import AccentMix, event_weights
 from .errors import InputError
 from .events import merge_events
+from .flux import FluxSettings
 from .limits import check_note_count, check_span
 from .load import NoteTable, load_notes, notes_from_onsets
 from .repetition import BarRepetition, note_keys
@@ -47,6 +48,7 @@ class Settings:
     tree: TreeSettings = field(default_factory=TreeSettings)
     n_alternatives: int = 5
     segments: SegmentSettings = field(default_factory=SegmentSettings)
+    audio: FluxSettings = field(default_factory=FluxSettings)
 
 
 @dataclass(frozen=True)
@@ -67,11 +69,11 @@ class Analysis:
     settings: Settings | None = None
 
 
-def _as_notes(source, tracks) -> NoteTable:
+def _as_notes(source, tracks, audio: FluxSettings | None = None) -> NoteTable:
     if isinstance(source, NoteTable):
         return source
     if isinstance(source, (str, os.PathLike)):
-        return load_notes(source, tracks=tracks)
+        return load_notes(source, tracks=tracks, audio=audio)
     try:
         arr = np.asarray(source, dtype=np.float64)
     except (TypeError, ValueError):
@@ -85,7 +87,7 @@ def analyse(source, *, tracks: list[int] | None = None, settings: Settings = Set
     Parameters
     ----------
     source : str, os.PathLike, NoteTable or array_like of float
-        A MIDI file or onset list, notes already loaded, or onset times in
+        A MIDI file, onset list or recording, notes already loaded, or onset times in
         seconds.
     tracks : list of int, optional
         MIDI track indices to keep; all by default.
@@ -121,7 +123,7 @@ def analyse_detailed(source, *, tracks: list[int] | None = None, settings: Setti
     instead of the tracked one: score input makes the pulse exact in note
     values this way (:mod:`metertop.scores`).
     """
-    notes = _as_notes(source, tracks)
+    notes = _as_notes(source, tracks, settings.audio)
     check_note_count(len(notes))
     events = merge_events(notes, settings.merge_window_s)
     t = events.times_s

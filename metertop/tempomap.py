@@ -354,7 +354,7 @@ def _groupings(result: MetreResult) -> dict:
     return out
 
 
-def write_tempo_map(result: MetreResult, source, target, *, force: bool = False) -> BarGrid:
+def write_tempo_map(result: MetreResult, source, target, *, force: bool = False, notes=None) -> BarGrid:
     """Write the performance with its tempo map and time signatures as a Standard MIDI File.
 
     Parameters
@@ -369,6 +369,11 @@ def write_tempo_map(result: MetreResult, source, target, *, force: bool = False)
     target : str or os.PathLike
         The file to write. It may not be the source, and an existing file is
         replaced only with ``force``; the write is atomic.
+    notes : NoteTable, optional
+        The notes already read from ``source`` (not a MIDI file): written
+        instead of reading the file again. A recording's detected onsets
+        come this way, as wood-block hits whose velocity follows their
+        strength.
 
     Returns
     -------
@@ -384,7 +389,7 @@ def write_tempo_map(result: MetreResult, source, target, *, force: bool = False)
         src = os.fspath(source)
         with open(src, "rb") as fh:
             is_midi = fh.read(4) == b"MThd" or src.lower().endswith(MIDI_SUFFIXES)
-        tracks = _tracks_from_midi(src) if is_midi else _tracks_from_table(load_notes(src))
+        tracks = _tracks_from_midi(src) if is_midi else _tracks_from_table(notes if notes is not None else load_notes(src))
     else:
         tracks = _tracks_from_table(source)
     ends = [float(np.max(tr.notes[:, 1])) for tr in tracks if len(tr.notes)]

@@ -29,14 +29,15 @@ from conftest import AMAZING_GRACE, render_tune, rendering_to_midi
 # these valid inputs, leave each input byte for byte as it was, and write
 # nothing beside it.
 COMMANDS: dict[str, tuple[list[str], set[str]]] = {
-    "analyse": (["analyse", "{input}"], {"midi", "csv", "tsv", "json"}),
-    "analyse --json": (["analyse", "--json", "{input}"], {"midi", "csv", "tsv", "json"}),
+    "analyse": (["analyse", "{input}"], {"midi", "csv", "tsv", "json", "wav"}),
+    "analyse --json": (["analyse", "--json", "{input}"], {"midi", "csv", "tsv", "json", "wav"}),
+    "analyse --onsets-out": (["analyse", "{input}", "--onsets-out", "{out}/onsets.csv"], {"midi", "csv", "wav"}),
     "analyse --track": (["analyse", "--track", "0", "{input}"], {"midi"}),
     "tracks": (["tracks", "{input}"], {"midi"}),
-    "check": (["check", "--time-signature", "3/4", "{input}"], {"midi", "csv"}),
-    "analyse --write-midi --beats": (["analyse", "{input}", "--write-midi", "{out}/grid.mid", "--beats", "{out}/beats.tsv"], {"midi", "csv"}),
+    "check": (["check", "--time-signature", "3/4", "{input}"], {"midi", "csv", "wav"}),
+    "analyse --write-midi --beats": (["analyse", "{input}", "--write-midi", "{out}/grid.mid", "--beats", "{out}/beats.tsv"], {"midi", "csv", "wav"}),
     "analyse --time-signature": (["analyse", "--time-signature", "3/4", "{input}"], {"midi"}),
-    "plot": (["plot", "{input}", "-o", "{out}/figure.png"], {"midi", "csv"}),
+    "plot": (["plot", "{input}", "-o", "{out}/figure.png"], {"midi", "csv", "wav"}),
     "batch": (["batch", "{input}", "-o", "{out}/results.jsonl"], {"midi", "csv"}),
 }
 
@@ -48,10 +49,13 @@ def inputs(tmp_path_factory) -> dict[str, Path]:
     nt = played.notes
     rows = list(zip(nt.onsets_s.tolist(), (1.0 + (nt.track == 1)).tolist(), nt.pitches.tolist()))
     out = {}
-    for kind in ("midi", "csv", "tsv", "json"):
+    for kind in ("midi", "csv", "tsv", "json", "wav"):
         folder = tmp_path_factory.mktemp(f"input-{kind}")
         if kind == "midi":
             out[kind] = rendering_to_midi(folder / "grace.mid", played, time_signature=(3, 4))
+            continue
+        if kind == "wav":  # the same performance synthesised (bench/synth.py), as a recording
+            out[kind] = _recording(folder / "grace.wav", nt)
             continue
         path = folder / f"grace.{kind}"
         if kind == "json":
@@ -61,6 +65,21 @@ def inputs(tmp_path_factory) -> dict[str, Path]:
             path.write_text(sep.join(["time_s", "weight", "pitch"]) + "\n" + "".join(f"{t!r}{sep}{w}{sep}{p}\n" for t, w, p in rows))
         out[kind] = path
     return out
+
+
+def _recording(path: Path, nt) -> Path:
+    import sys
+
+    import soundfile as sf
+
+    from conftest import REPO
+
+    if str(REPO / "bench") not in sys.path:
+        sys.path.insert(0, str(REPO / "bench"))
+    from synth import synthesise
+
+    sf.write(str(path), synthesise(nt.onsets_s, nt.durations_s, nt.pitches, nt.velocities, nt.is_drum, sample_rate=22_050), 22_050)
+    return path
 
 
 def _fingerprint(path: Path) -> tuple[str, int, int]:

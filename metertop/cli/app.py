@@ -24,8 +24,9 @@ def _fail(message: str, code: int = 2) -> None:
     raise typer.Exit(code)
 
 
-def _settings(merge_ms: float, engine: str):
+def _settings(merge_ms: float, engine: str, band_weights: str | None = None):
     """Pipeline settings from the shared command-line options, or a one-line error."""
+    from ..flux import FluxSettings
     from ..persistence import ENGINES
     from ..pipeline import Settings
 
@@ -33,7 +34,14 @@ def _settings(merge_ms: float, engine: str):
         _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
     if not merge_ms >= 0 or merge_ms > 1000:
         _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
-    return Settings(merge_window_s=merge_ms / 1000.0, engine=engine)
+    audio = FluxSettings()
+    if band_weights is not None:
+        try:
+            weights = tuple(float(v) for v in band_weights.split(","))
+            audio = FluxSettings(band_weights=weights)
+        except ValueError:
+            _fail(f"--band-weights takes three numbers LOW,MID,HIGH, not negative and not all 0 (e.g. 2,1.5,1); got '{band_weights}'")
+    return Settings(merge_window_s=merge_ms / 1000.0, engine=engine, audio=audio)
 
 
 def _version(value: bool) -> None:
@@ -53,7 +61,7 @@ def _root(
 
 @app.command("analyse")
 def analyse_cmd(
-    files: List[Path] = typer.Argument(..., help="MIDI files (.mid), onset lists (.csv, .tsv, .txt, .json) or scores (.musicxml, .xml, .mxl, .abc, .krn)."),
+    files: List[Path] = typer.Argument(..., help="MIDI files (.mid), onset lists (.csv, .tsv, .txt, .json), recordings (.wav, .flac, .ogg) or scores (.musicxml, .xml, .mxl, .abc, .krn)."),
     json_out: bool = typer.Option(False, "--json", help="Print one JSON line per file (per tune for scores) instead of a summary."),
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
@@ -65,6 +73,8 @@ def analyse_cmd(
     plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure of the proposal to this file (.png, .svg or .pdf); one FILE only."),
     tune: Optional[List[int]] = typer.Option(None, "--tune", help="Score files: analyse only tune N of an ABC or kern file holding several (repeatable; from 1)."),
     write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the chosen reading."),
+    onsets_out: Optional[Path] = typer.Option(None, "--onsets-out", help="Write the onsets analysed (a recording's detected onsets) as a CSV onset list, to inspect, correct and analyse again."),
+    band_weights: Optional[str] = typer.Option(None, "--band-weights", help="Recordings: weight of the low (kick-like), mid (snare-like) and high bands in each onset's strength, as LOW,MID,HIGH (default 4,2,1)."),
     force: bool = typer.Option(False, "--force", help="Replace output files that exist."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
@@ -74,7 +84,7 @@ def analyse_cmd(
     from .score_files import analyse_score_file, check_score_options
     from .writeback import analyse_one, check_options
 
-    settings = _settings(merge_ms, engine)
+    settings = _settings(merge_ms, engine, band_weights)
     scores = [is_score_path(f) for f in files]
     if any(scores) or write_score is not None or tune:
         problem = check_score_options(list(files), write_score, reading if reading is not None else 1, tune)
@@ -90,7 +100,7 @@ def analyse_cmd(
         prepare_plot(plot, files[0], force)
     try:
         check_options([f for f, sc in zip(files, scores) if not sc], time_signature, reading if not all(scores) else None,
-                      write_midi, beats, force)
+                      write_midi, beats, force, onsets_out)
     except MetertopError as exc:
         _fail(str(exc))
     failed = 0
@@ -106,7 +116,7 @@ def analyse_cmd(
             continue
         try:
             analysis, extra, lines = analyse_one(path, list(track) if track else None, settings, time_signature, reading, write_midi,
-                                                 beats, force)
+                                                 beats, force, onsets_out)
             result = analysis.result
             if plot is not None:
                 save_analysis_figure(analysis, path, plot, force=force)

@@ -2,7 +2,8 @@
 
 ``--time-signature`` fits a given metre, ``--reading N`` takes the Nth
 alternative, ``--write-midi`` and ``--beats`` write the chosen reading out
-(see :mod:`metertop.tempomap`).
+(see :mod:`metertop.tempomap`), and ``--onsets-out`` writes the notes' onsets
+(a recording's detected onsets) as an onset list that metertop reads back.
 """
 
 from __future__ import annotations
@@ -15,7 +16,7 @@ __all__ = ["check_options", "analyse_one"]
 
 
 def check_options(files: list[Path], time_signature: str | None, reading: int | None, write_midi: Path | None,
-                  beats: Path | None, force: bool) -> None:
+                  beats: Path | None, force: bool, onsets_out: Path | None = None) -> None:
     """Reject option combinations that cannot work, before any analysis (raises InputError)."""
     from ..notation import notated_metre
     from ..outputs import check_target
@@ -26,17 +27,17 @@ def check_options(files: list[Path], time_signature: str | None, reading: int | 
         raise InputError(f"--reading counts from 1, got {reading}")
     if time_signature is not None:
         notated_metre(time_signature)
-    outputs = [p for p in (write_midi, beats) if p is not None]
+    outputs = [p for p in (write_midi, beats, onsets_out) if p is not None]
     if outputs and len(files) != 1:
-        raise InputError("--write-midi and --beats write one file's reading: give exactly one FILE")
-    if len(outputs) == 2 and Path(outputs[0]).resolve() == Path(outputs[1]).resolve():
-        raise InputError("--write-midi and --beats name the same file")
+        raise InputError("--write-midi, --beats and --onsets-out write one file's results: give exactly one FILE")
+    if len({Path(p).resolve() for p in outputs}) < len(outputs):
+        raise InputError("--write-midi, --beats and --onsets-out must name different files")
     for out in outputs:
         check_target(out, inputs=files, force=force)
 
 
 def analyse_one(path: Path, tracks, settings, time_signature: str | None, reading: int | None, write_midi: Path | None,
-                beats: Path | None, force: bool):
+                beats: Path | None, force: bool, onsets_out: Path | None = None):
     """Analyse one file with the chosen reading and write its outputs.
 
     Returns
@@ -58,6 +59,15 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
 
     analysis = analyse_detailed(path, tracks=tracks, settings=settings)
     extra, lines = {}, []
+    written = []
+    from_audio = analysis.notes is not None and analysis.notes.source == "audio"
+    if onsets_out is not None:
+        from ..audio import onsets_csv
+
+        target = check_target(onsets_out, inputs=[path], force=force)
+        atomic_write(target, onsets_csv(analysis.notes))
+        written.append(str(onsets_out))
+        lines.append(f"wrote {onsets_out}: {len(analysis.notes)} onsets")
     if time_signature is not None:
         verdict = check_notated(analysis, time_signature)
         analysis = choose_reading(analysis, time_signature=time_signature)
@@ -69,9 +79,9 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
     elif reading is not None:
         analysis = choose_reading(analysis, rank=reading)
     result = analysis.result
-    grid, written = None, []
+    grid = None
     if write_midi is not None:
-        grid = write_tempo_map(result, path, write_midi, force=force)
+        grid = write_tempo_map(result, path, write_midi, force=force, notes=analysis.notes if from_audio else None)
         written.append(str(write_midi))
         lines.append(f"wrote {write_midi}: {int(grid.bar[-1])} bars, {len(grid.times_s)} beat lines, "
                      f"{grid.ticks_per_quarter} ticks per quarter")

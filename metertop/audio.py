@@ -1,0 +1,134 @@
+"""Recordings as input: read WAV, FLAC or OGG with soundfile, detect the onsets, write them out.
+
+Conventions
+-----------
+- soundfile (the ``audio`` extra: ``pip install 'metertop[audio]'``) is
+  imported only when a recording is read, so MIDI and onset-list commands
+  never pay for it.
+- Several channels are mixed down to mono (their mean); any sample rate is
+  accepted. The samples are float32.
+- The onsets (:mod:`metertop.flux`) become a :class:`~metertop.load.NoteTable`
+  with ``source="audio"``: no pitch, no velocity, and each onset's flux
+  strength as its ``weight``. Times are rounded to microseconds and weights
+  to six significant digits, so that the onset list written by
+  :func:`onsets_csv` reads back as exactly the same table.
+- Every problem with the file is an :class:`~metertop.errors.InputError`.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import replace
+
+import numpy as np
+
+from .errors import InputError
+from .flux import FluxSettings, detect_onsets
+from .limits import LimitError
+
+__all__ = ["AUDIO_SUFFIXES", "AUDIO_MAGIC", "MAX_AUDIO_BYTES", "MAX_AUDIO_S", "read_audio", "audio_notes", "onsets_csv",
+           "is_audio_file", "require_soundfile"]
+
+AUDIO_SUFFIXES = (".wav", ".wave", ".flac", ".ogg", ".oga")
+# The first four bytes of the containers soundfile reads for us.
+AUDIO_MAGIC = (b"RIFF", b"RF64", b"fLaC", b"OggS")
+MAX_AUDIO_BYTES = 1024 * 1024 * 1024
+MAX_AUDIO_S = 30 * 60.0
+_BLOCK_FRAMES = 1 << 18
+
+
+def is_audio_file(path: str, head: bytes) -> bool:
+    """Whether ``path`` (whose first bytes are ``head``) is a recording, by its suffix or its container's magic bytes."""
+    return os.path.splitext(path)[1].lower() in AUDIO_SUFFIXES or head[:4] in AUDIO_MAGIC
+
+
+def require_soundfile():
+    """The soundfile module, or an InputError that says how to install it."""
+    try:
+        import soundfile
+    except ImportError:
+        raise InputError("reading recordings needs soundfile: pip install 'metertop[audio]'") from None
+    except OSError as exc:  # the package is there but its libsndfile is not
+        raise InputError(f"soundfile cannot load libsndfile ({exc}); reinstall it: pip install 'metertop[audio]'") from None
+    return soundfile
+
+
+def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
+    """The samples of a recording mixed down to mono (float32), and its sample rate.
+
+    Raises
+    ------
+    InputError
+        If soundfile is missing, the file is not a readable WAV, FLAC or OGG
+        file, holds no samples, or is longer than :data:`MAX_AUDIO_S`.
+    """
+    sf = require_soundfile()
+    path = os.fspath(path)
+    try:
+        with sf.SoundFile(path) as f:
+            rate, channels, frames = float(f.samplerate), int(f.channels), int(f.frames)
+            if rate <= 0 or channels <= 0:
+                raise InputError(f"{path}: not a readable recording (sample rate {rate:g}, {channels} channels)")
+            if frames > MAX_AUDIO_S * rate:
+                raise LimitError(f"{path}: a recording of {frames / rate / 60:.1f} minutes; metertop analyses at most "
+                                 f"{MAX_AUDIO_S / 60:g} minutes of audio at once: split it")
+            mono = np.empty(frames, dtype=np.float32)
+            done = 0
+            while done < frames:
+                block = f.read(min(_BLOCK_FRAMES, frames - done), dtype="float32", always_2d=True)
+                if len(block) == 0:
+                    break
+                mono[done:done + len(block)] = block.mean(axis=1) if channels > 1 else block[:, 0]
+                done += len(block)
+    except InputError:
+        raise
+    except (RuntimeError, ValueError, TypeError, OSError, EOFError) as exc:  # LibsndfileError is a RuntimeError
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(f"{path}: not a readable recording (WAV, FLAC or OGG): {msg}") from None
+    if done == 0:
+        raise InputError(f"{path}: the recording holds no samples")
+    return mono[:done], rate
+
+
+def audio_notes(path: str | os.PathLike, settings: FluxSettings | None = None):
+    """The onsets of a recording as a :class:`~metertop.load.NoteTable` (``source="audio"``, flux strength as weight).
+
+    Raises
+    ------
+    InputError
+        For an unreadable file (:func:`read_audio`), a silent recording or
+        one without a clear onset ("no onsets found").
+    """
+    from .load import notes_from_onsets
+
+    samples, rate = read_audio(path)
+    try:
+        onsets = detect_onsets(samples, rate, settings or FluxSettings())
+    except InputError as exc:
+        raise InputError(f"{os.fspath(path)}: {exc}") from None
+    times = _decimal(onsets.times_s, "{:.6f}")
+    weights = _decimal(np.maximum(onsets.strengths, 1e-6), "{:.6g}")
+    return replace(notes_from_onsets(times, weights), source="audio")
+
+
+def _decimal(values: np.ndarray, fmt: str) -> np.ndarray:
+    """``values`` as they read back from their text form (so a written onset list reproduces them exactly)."""
+    return np.array([float(fmt.format(v)) for v in np.asarray(values, dtype=np.float64).tolist()], dtype=np.float64)
+
+
+def onsets_csv(notes) -> str:
+    """An onset list (CSV with ``time_s`` and ``weight``) that :func:`metertop.load.load_notes` reads back.
+
+    Examples
+    --------
+    >>> from metertop.load import notes_from_onsets
+    >>> print(onsets_csv(notes_from_onsets([0.5, 1.25], [2.0, 0.75])), end="")
+    time_s,weight
+    0.500000,2
+    1.250000,0.75
+    """
+    w = np.asarray(notes.weights, dtype=np.float64)
+    rows = ["time_s,weight"]
+    for t, wi in zip(np.asarray(notes.onsets_s, dtype=np.float64).tolist(), w.tolist()):
+        rows.append(f"{t:.6f}," + ("" if not np.isfinite(wi) else f"{wi:.6g}"))
+    return "\n".join(rows) + "\n"
