@@ -290,6 +290,8 @@ def find_segments(positions, weights, pulse_s: float, tree: MetricTree, tree_set
     # 1. The gate: does the main reading lose its local support anywhere?
     starts = np.arange(first, x1 - width + bar, bar)
     margins = _margins(x, w, main, starts, width, pulse_s, tree_settings, engine)
+    if not np.isfinite(margins).any():
+        return whole  # no window has enough onsets to measure the main reading's support
     # Low in absolute terms and against the piece's own typical support (drum kits often give every window a low margin).
     m = np.nan_to_num(margins, nan=np.inf)
     low = (m <= settings.gate_margin) & (m <= np.median(margins[np.isfinite(margins)]) - settings.gate_drop)

@@ -233,3 +233,16 @@ def test_time_signature_no_notation_uses_is_left_out(tmp_path):
     assert load_notes(path).time_signatures == ()
     outcome = run_cli(["analyse", str(path)])
     assert outcome.verdict == "analysed"
+
+
+@pytest.mark.parametrize("index", [3396, 3491, 7630, 9906])
+def test_fuzz_cases_where_no_window_can_measure_the_main_reading(tmp_path, index):
+    """Damaged files from `make bench-robust` (seed 2026) whose metre-change windows all lack onsets: once a
+    'Mean of empty slice' warning from the gate's median; now a result with one segment and no warning."""
+    h = hostile_input(2026, index)
+    path = tmp_path / f"case{h.suffix}"
+    path.write_bytes(h.data)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        r = metertop.analyse(path)
+    assert len(r.segments) == 1 and r.time_signature
