@@ -82,12 +82,11 @@ class BarRepetition:
         order = np.lexsort((x, self._k))
         self._x, self._k = x[order], self._k[order]
         self._end = float(x.max())
+        self._span = self._end - float(x.min())
         # Keys laid end to end on one line, far enough apart that no lag
         # reaches from one key's notes into the next key's.
-        self._stride = float(x.max() - x.min()) * 3 + 1e3
-        self._line = self._x + self._k * self._stride
+        self._line = self._x + self._k * (self._span * 3 + 1e3)
         self._per_key = np.bincount(self._k).astype(float)
-        self._span = float(x.max() - x.min())
 
     def share(self, length: float) -> float:
         """Mean over the keys of the share of eligible notes that recur ``length`` pulses later (0 if no key votes).
@@ -144,5 +143,4 @@ class BarRepetition:
     def window(self, lo: float, hi: float) -> "BarRepetition":
         """The same measure over the notes in ``[lo, hi)`` only."""
         sel = (self._x >= lo) & (self._x < hi)
-        keys = self._k[sel] if len(self._x) else self._k
-        return BarRepetition(self._x[sel], keys, self.tolerance)
+        return BarRepetition(self._x[sel], self._k[sel], self.tolerance)

@@ -842,24 +842,23 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     that weighs most, bar by bar; its evidence is that position's persistence
     margin times the reliability of its weight against the other downbeats,
     bar by bar (as for the bar itself). The multiple with the most evidence
-    wins if it reaches ``hyper_min_evidence``.
+    wins if it reaches ``hyper_min_evidence``. A drum kit's hypermeasure comes
+    from its phrase marks instead (:func:`_kit_hypermeasure`).
     """
+    if scan.repetition is not None:
+        return _kit_hypermeasure(scan, best, s)
     span = scan.span
     bar = float(best.bar)
     tol = min(0.25 * float(best.beat) / bar, 0.12)
-    otol = 0.25 * float(best.tatum if best.grouping else best.beat / best.division)
+    otol = _hyper_otol(best)
     best_k, best_ev, best_start = None, 0.0, best.downbeat_pulses
-    if scan.repetition is not None:
-        return _kit_hypermeasure(scan, best, s, otol)
     for k in (2, 3, 4, 8):
         length = bar * k
         if 3 * length > span:
             break
         cyc = scan(best.bar * k)
         offsets = np.arange(k) * bar
-        # The candidate start is the bar downbeat that weighs most, bar by bar.
-        j = int(np.argmax(scan.grid_weights(best.downbeat_pulses, length, offsets, otol).mean(axis=0)))
-        start = float((best.downbeat_pulses + j * bar) % length)
+        start = _hyper_start(scan, best, k, otol)
         ev = _margin(cyc, start / length, tol / k) * _reliability(scan.grid_weights(start, length, offsets, otol))
         if ev > best_ev:
             best_k, best_ev, best_start = k, ev, start
@@ -868,7 +867,20 @@ def _hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int
     return best_k, best_ev, best_start
 
 
-def _kit_hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings, otol: float) -> tuple[int | None, float, float]:
+def _hyper_otol(best: Candidate) -> float:
+    """How far (pulses) an onset may lie from a bar downbeat and still count for it: a quarter of the subdivision."""
+    return 0.25 * float(best.tatum if best.grouping else best.beat / best.division)
+
+
+def _hyper_start(scan: _Scanner, best: Candidate, k: int, otol: float) -> float:
+    """Start (pulses, modulo ``k`` bars) of a hypermeasure of ``k`` bars: the bar downbeat that weighs most, cycle by cycle."""
+    bar = float(best.bar)
+    length = bar * k
+    j = int(np.argmax(scan.grid_weights(best.downbeat_pulses, length, np.arange(k) * bar, otol).mean(axis=0)))
+    return float((best.downbeat_pulses + j * bar) % length)
+
+
+def _kit_hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings) -> tuple[int | None, float, float]:
     """For a drum kit: the fewest bars at which the kit's phrase marks (a crash, a fill) come back.
 
     Evidence for ``k`` bars is :meth:`~metertop.repetition.BarRepetition.phrase_gain`,
@@ -884,9 +896,7 @@ def _kit_hypermeasure(scan: _Scanner, best: Candidate, s: TreeSettings, otol: fl
     if top < s.hyper_min_gain:
         return None, top, best.downbeat_pulses
     k = min(k for k, g in gains.items() if g >= max(s.hyper_min_gain, s.hyper_near_best * top))
-    length = bar * k
-    j = int(np.argmax(scan.grid_weights(best.downbeat_pulses, length, np.arange(k) * bar, otol).mean(axis=0)))
-    return k, gains[k], float((best.downbeat_pulses + j * bar) % length)
+    return k, gains[k], _hyper_start(scan, best, k, _hyper_otol(best))
 
 
 def _tree_graph(best: Candidate, cands, p, scan: _Scanner, hyper, hyper_score, hyper_start) -> dict:
