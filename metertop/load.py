@@ -43,7 +43,7 @@ import numpy as np
 
 from .errors import InputError
 from .limits import MAX_TIME_S as _MAX_TIME_S
-from .limits import LimitError, check_file_size, check_note_count
+from .limits import MAX_FILE_BYTES, LimitError, check_file_size, check_note_count
 from .smf import survey_smf
 
 __all__ = ["NoteTable", "TimeSignatureEvent", "load_notes", "check_input_file", "list_tracks", "notes_from_onsets", "MIDI_SUFFIXES", "ONSET_SUFFIXES"]
@@ -185,7 +185,7 @@ def _check_times(t: np.ndarray, what: str) -> None:
         raise InputError(f"{what} times must not be negative (found {t.min():g} s)")
 
 
-def check_input_file(path: str | os.PathLike, max_bytes: int | None = None) -> str:
+def check_input_file(path: str | os.PathLike, max_bytes: int = MAX_FILE_BYTES) -> str:
     """The path as a string, if it names an existing, non-empty file of at most ``max_bytes``; else an InputError."""
     path = os.fspath(path)
     if not os.path.exists(path):
@@ -196,7 +196,7 @@ def check_input_file(path: str | os.PathLike, max_bytes: int | None = None) -> s
     if size == 0:
         raise InputError(f"{path}: file is empty")
     try:
-        check_file_size(size) if max_bytes is None else check_file_size(size, max_bytes)
+        check_file_size(size, max_bytes)
     except LimitError as exc:
         raise LimitError(f"{path}: {exc}") from None
     return path
@@ -224,7 +224,7 @@ def load_notes(path: str | os.PathLike, tracks: list[int] | None = None, audio=N
     from .audio import AUDIO_SUFFIXES, MAX_AUDIO_BYTES, audio_notes, is_audio_file
 
     suffix = os.path.splitext(os.fspath(path))[1].lower()
-    path = check_input_file(path, MAX_AUDIO_BYTES if suffix in AUDIO_SUFFIXES else None)
+    path = check_input_file(path, MAX_AUDIO_BYTES if suffix in AUDIO_SUFFIXES else MAX_FILE_BYTES)
     try:
         with open(path, "rb") as fh:
             head = fh.read(4)
