@@ -81,10 +81,17 @@ def circular_bumps(phases, weights, n_bins: int, widths) -> np.ndarray:
     """
     ph = np.asarray(phases, dtype=np.float64)
     one = ph.ndim == 1
-    out = _bumps(ph[:, None] if one else ph, weights, n_bins, widths)
-    # Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
-    out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
+    out = _clear_ripples(_bumps(ph[:, None] if one else ph, weights, n_bins, widths))
     return out[0] if one else out
+
+
+def _clear_ripples(out: np.ndarray) -> np.ndarray:
+    """``out`` with its rounding ripples set to 0 in place: values within 1e-12 of its largest magnitude.
+
+    Rounding leaves +-1e-16 ripples in empty stretches, which would count as peaks.
+    """
+    out[np.abs(out) <= 1e-12 * max(float(np.abs(out).max()), 1e-300)] = 0.0
+    return out
 
 
 def _bumps(ph: np.ndarray, weights, n_bins: int, widths) -> np.ndarray:
@@ -241,12 +248,17 @@ def wrap_cycle(positions, weights, length: float, bins_per_unit: int = 12, width
     >>> round(float(c.peak_phases[0]), 3), c.dominance > 0.3
     (0.0, True)
     """
+    n_bins, width = _bins_and_width(length, bins_per_unit, width_units, max_bins)
+    dens = wrapped_density(positions, weights, length, n_bins, width, span=span)
+    return WrappedCycle(float(length), dens, circle_diagram(dens, engine=engine))
+
+
+def _bins_and_width(length: float, bins_per_unit: int, width_units: float, max_bins: int) -> tuple[int, float]:
+    """Bins on the circle of a cycle of ``length``, and its bumps' width as a fraction of the cycle."""
     n_bins = int(min(max(np.ceil(length * bins_per_unit), 12), max_bins))
     # Where the bin cap bites (long cycles), widen the bumps to keep about
     # 2.5 bins per standard deviation; narrower bumps would fall between bins.
-    width = max(width_units / length, 2.5 / n_bins if n_bins == max_bins else 0.0)
-    dens = wrapped_density(positions, weights, length, n_bins, width, span=span)
-    return WrappedCycle(float(length), dens, circle_diagram(dens, engine=engine))
+    return n_bins, max(width_units / length, 2.5 / n_bins if n_bins == max_bins else 0.0)
 
 
 def wrap_cycles(positions, weights, lengths, bins_per_unit: int = 12, width_units: float = 0.07, spans=None,
@@ -270,17 +282,16 @@ def wrap_cycles(positions, weights, lengths, bins_per_unit: int = 12, width_unit
         return [wrap_cycle(x, w, L, bins_per_unit, width_units, sp, engine, max_bins) for L, sp in zip(lengths, spans)]
     by_bins: dict = {}
     for i, length in enumerate(lengths):
-        n_bins = int(min(max(np.ceil(length * bins_per_unit), 12), max_bins))
-        by_bins.setdefault(n_bins, []).append(i)
+        n_bins, width = _bins_and_width(length, bins_per_unit, width_units, max_bins)
+        by_bins.setdefault(n_bins, []).append((i, width))
     out: list = [None] * len(lengths)
     for n_bins, rows in by_bins.items():
         # The same numbers as wrap_cycle and wrapped_density, one row per length.
-        ls = np.array([lengths[i] for i in rows])
-        widths = np.array([max(width_units / lengths[i], 2.5 / n_bins if n_bins == max_bins else 0.0) for i in rows])
+        ls = np.array([lengths[i] for i, _ in rows])
+        widths = np.array([width for _, width in rows])
         dens = _bumps(x[:, None] / ls[None, :], w, n_bins, widths)
-        for r, i in enumerate(rows):
-            row = dens[r]
-            row[np.abs(row) <= 1e-12 * max(float(np.abs(row).max()), 1e-300)] = 0.0
+        for r, (i, _) in enumerate(rows):
+            row = _clear_ripples(dens[r])
             length, span = lengths[i], spans[i]
             if span is None:
                 span = x.max() - x.min() + length
