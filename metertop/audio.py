@@ -8,8 +8,12 @@ Conventions
 - Several channels are mixed down to mono (their mean); any sample rate is
   accepted. The samples are float32.
 - The onsets (:mod:`metertop.flux`) become a :class:`~metertop.load.NoteTable`
-  with ``source="audio"``: no pitch, no velocity, and each onset's flux
-  strength as its ``weight``. Times are rounded to microseconds and weights
+  with ``source="audio"``: no velocity, and each onset's flux strength as
+  its ``weight``. A recording that reads as a drum kit
+  (:func:`metertop.flux.is_kit`) gives a drum hit (General MIDI key) per drum
+  an onset sounds (:func:`metertop.flux.kit_strokes`), so the kit's roles
+  and its bar-lag repetition count as for drum MIDI; any other recording
+  gives notes without pitch. Times are rounded to microseconds and weights
   to six significant digits, so that the onset list written by
   :func:`onsets_csv` reads back as exactly the same table.
 - Every problem with the file is an :class:`~metertop.errors.InputError`.
@@ -23,7 +27,7 @@ from dataclasses import replace
 import numpy as np
 
 from .errors import InputError
-from .flux import FluxSettings, detect_onsets
+from .flux import FluxSettings, detect_onsets, is_kit, kit_strokes
 from .limits import LimitError
 
 __all__ = ["AUDIO_SUFFIXES", "AUDIO_MAGIC", "MAX_AUDIO_BYTES", "MAX_AUDIO_S", "read_audio", "audio_notes", "onsets_csv",
@@ -101,14 +105,19 @@ def audio_notes(path: str | os.PathLike, settings: FluxSettings | None = None):
     """
     from .load import notes_from_onsets
 
+    settings = settings or FluxSettings()
     samples, rate = read_audio(path)
     try:
-        onsets = detect_onsets(samples, rate, settings or FluxSettings())
+        onsets = detect_onsets(samples, rate, settings)
     except InputError as exc:
         raise InputError(f"{os.fspath(path)}: {exc}") from None
     times = _decimal(onsets.times_s, "{:.6f}")
     weights = _decimal(np.maximum(onsets.strengths, 1e-6), "{:.6g}")
-    return replace(notes_from_onsets(times, weights), source="audio")
+    if not is_kit(onsets.bands, settings):
+        return replace(notes_from_onsets(times, weights), source="audio")
+    idx, keys, levels = kit_strokes(onsets.bands, settings)
+    levels = _decimal(np.maximum(levels, 1e-6), "{:.6g}")
+    return replace(notes_from_onsets(times[idx], levels, keys, np.ones(len(idx), bool)), source="audio")
 
 
 def _decimal(values: np.ndarray, fmt: str) -> np.ndarray:
@@ -117,7 +126,7 @@ def _decimal(values: np.ndarray, fmt: str) -> np.ndarray:
 
 
 def onsets_csv(notes) -> str:
-    """An onset list (CSV with ``time_s`` and ``weight``) that :func:`metertop.load.load_notes` reads back.
+    """An onset list (CSV with ``time_s``, ``weight``, and ``drum`` for drum hits) that :func:`metertop.load.load_notes` reads back.
 
     Examples
     --------
@@ -128,7 +137,11 @@ def onsets_csv(notes) -> str:
     1.250000,0.75
     """
     w = np.asarray(notes.weights, dtype=np.float64)
-    rows = ["time_s,weight"]
-    for t, wi in zip(np.asarray(notes.onsets_s, dtype=np.float64).tolist(), w.tolist()):
-        rows.append(f"{t:.6f}," + ("" if not np.isfinite(wi) else f"{wi:.6g}"))
+    drums = np.asarray(notes.is_drum, dtype=bool)
+    kit = bool(drums.any())
+    rows = ["time_s,weight,drum" if kit else "time_s,weight"]
+    for t, wi, d, p in zip(np.asarray(notes.onsets_s, dtype=np.float64).tolist(), w.tolist(), drums.tolist(),
+                           np.asarray(notes.pitches).tolist()):
+        row = f"{t:.6f}," + ("" if not np.isfinite(wi) else f"{wi:.6g}")
+        rows.append(row + (f",{p}" if d else ",") if kit else row)
     return "\n".join(rows) + "\n"

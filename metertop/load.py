@@ -11,14 +11,17 @@ Conventions
 Onset lists may be:
 
 - CSV or TSV with a header naming ``time_s`` (required) and optionally
-  ``weight`` and ``pitch``;
+  ``weight``, ``pitch`` and ``drum`` (a General MIDI percussion key: the
+  onset is a drum hit; a row gives a pitch or a drum, not both);
 - a single column of seconds, no header;
 - JSON: an array of numbers, or of objects with ``time_s`` and optionally
-  ``weight`` and ``pitch``.
+  ``weight``, ``pitch`` and ``drum``.
 
 Recordings (WAV, FLAC, OGG; the ``audio`` extra) go through the onset
 detector of :mod:`metertop.flux` (:func:`metertop.audio.audio_notes`): each
-onset becomes a note without pitch whose ``weight`` is its flux strength.
+onset becomes a note without pitch whose ``weight`` is its flux strength, or,
+in a recording that reads as a drum kit, a drum hit per drum it sounds
+(:func:`metertop.flux.kit_strokes`).
 
 Exact duplicates (same time and pitch) are dropped on loading.
 
@@ -132,7 +135,7 @@ def _finish(onsets_s, durations_s, pitches, velocities, weights, is_drum, track,
     )
 
 
-def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
+def notes_from_onsets(onsets_s, weights=None, pitches=None, drums=None) -> NoteTable:
     """Build a :class:`NoteTable` from onset times in seconds.
 
     Parameters
@@ -144,6 +147,9 @@ def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
     pitches : array_like of int, optional
         MIDI note number (0-127) of each onset, used to tell duplicates
         from chords; -1 where unknown.
+    drums : array_like of bool, optional
+        Whether each onset is a drum hit, its pitch then a General MIDI
+        percussion key (which needs a pitch).
 
     Examples
     --------
@@ -162,7 +168,12 @@ def notes_from_onsets(onsets_s, weights=None, pitches=None) -> NoteTable:
     p = np.full(n, -1, dtype=np.int64) if pitches is None else _check_pitches(pitches)
     if len(p) != n:
         raise InputError(f"got {n} onsets but {len(p)} pitches")
-    return _finish(t, np.full(n, np.nan), p, np.full(n, np.nan), w, np.zeros(n, bool), np.zeros(n, np.int64))
+    d = np.zeros(n, bool) if drums is None else np.asarray(drums, dtype=bool).ravel()
+    if len(d) != n:
+        raise InputError(f"got {n} onsets but {len(d)} drum flags")
+    if np.any(d & (p < 0)):
+        raise InputError("a drum hit needs its General MIDI percussion key as its pitch")
+    return _finish(t, np.full(n, np.nan), p, np.full(n, np.nan), w, d, np.zeros(n, np.int64))
 
 
 def _check_pitches(pitches) -> np.ndarray:
@@ -357,7 +368,7 @@ def _parse_json(path: str, text: str) -> NoteTable:
     if not isinstance(data, list) or not data:
         raise InputError(f"{path}: expected a non-empty JSON array of onset times or of objects with 'time_s'")
     _check_rows(path, len(data))
-    times, weights, pitches = [], [], []
+    times, weights, pitches, drums = [], [], [], []
     for i, item in enumerate(data):
         where = f"{path}: item {i}"
         if isinstance(item, dict):
@@ -365,12 +376,22 @@ def _parse_json(path: str, text: str) -> NoteTable:
                 raise InputError(f"{where}: object has no 'time_s'")
             times.append(_json_number(item["time_s"], where))
             weights.append(_json_number(item["weight"], where) if item.get("weight") is not None else np.nan)
-            pitches.append(_pitch(_json_number(item["pitch"], where), where) if item.get("pitch") is not None else -1)
+            pitch = _pitch(_json_number(item["pitch"], where), where) if item.get("pitch") is not None else None
+            drum = _pitch(_json_number(item["drum"], where), where, "drum") if item.get("drum") is not None else None
+            _key(pitch, drum, where, pitches, drums)
         else:
             times.append(_json_number(item, where))
             weights.append(np.nan)
-            pitches.append(-1)
-    return _onsets_or_error(path, times, weights, pitches)
+            _key(None, None, where, pitches, drums)
+    return _onsets_or_error(path, times, weights, pitches, drums)
+
+
+def _key(pitch: int | None, drum: int | None, where: str, pitches: list, drums: list) -> None:
+    """Append an onset's pitch (or drum key, or -1) and drum flag; a pitch and a drum key on one onset is an error."""
+    if pitch is not None and drum is not None:
+        raise InputError(f"{where}: gives both a pitch and a drum; an onset is one or the other")
+    pitches.append(drum if drum is not None else (-1 if pitch is None else pitch))
+    drums.append(drum is not None)
 
 
 def _json_number(value, where: str) -> float:
@@ -384,9 +405,9 @@ def _json_number(value, where: str) -> float:
         raise InputError(f"{where}: a number too large to read") from None
 
 
-def _pitch(value: float, where: str) -> int:
+def _pitch(value: float, where: str, what: str = "pitch") -> int:
     if not (math.isfinite(value) and value == round(value) and 0 <= value <= 127):
-        raise InputError(f"{where}: pitch {_short(f'{value:g}')} is not a MIDI note number (0-127)")
+        raise InputError(f"{where}: {what} {_short(f'{value:g}')} is not a MIDI note number (0-127)")
     return int(value)
 
 
@@ -424,15 +445,16 @@ def _parse_table(path: str, text: str) -> NoteTable:
         ti = names.index("time_s")
         wi = names.index("weight") if "weight" in names else None
         pi = names.index("pitch") if "pitch" in names else None
+        di = names.index("drum") if "drum" in names else None
         body, first_line = rows[1:], 2
     else:
         if len(header) != 1:
             raise InputError(f"{path}: a file without a header must hold one column of seconds; add a header with 'time_s'")
-        ti, wi, pi = 0, None, None
+        ti, wi, pi, di = 0, None, None, None
         body, first_line = rows, 1
     if not body:
         raise InputError(f"{path}: file holds no onsets")
-    times, weights, pitches = [], [], []
+    times, weights, pitches, drums = [], [], [], []
     for k, row in enumerate(body):
         where = f"{path}: line {k + first_line}"
         if len(row) == 1 and len(header) > 1 and any(sep in row[0] for sep in ",;\t|"):
@@ -441,8 +463,10 @@ def _parse_table(path: str, text: str) -> NoteTable:
             raise InputError(f"{where}: missing time_s value")
         times.append(_parse_float(row[ti], f"{where}, time_s"))
         weights.append(_parse_float(row[wi], f"{where}, weight") if wi is not None and len(row) > wi and row[wi] != "" else np.nan)
-        pitches.append(_pitch(_parse_float(row[pi], f"{where}, pitch"), where) if pi is not None and len(row) > pi and row[pi] != "" else -1)
-    return _onsets_or_error(path, times, weights, pitches)
+        pitch = _pitch(_parse_float(row[pi], f"{where}, pitch"), where) if pi is not None and len(row) > pi and row[pi] != "" else None
+        drum = _pitch(_parse_float(row[di], f"{where}, drum"), where, "drum") if di is not None and len(row) > di and row[di] != "" else None
+        _key(pitch, drum, where, pitches, drums)
+    return _onsets_or_error(path, times, weights, pitches, drums)
 
 
 def _looks_numeric(text: str) -> bool:
@@ -453,8 +477,8 @@ def _looks_numeric(text: str) -> bool:
     return True
 
 
-def _onsets_or_error(path: str, times, weights, pitches) -> NoteTable:
+def _onsets_or_error(path: str, times, weights, pitches, drums) -> NoteTable:
     try:
-        return notes_from_onsets(times, weights, pitches)
+        return notes_from_onsets(times, weights, pitches, drums)
     except InputError as exc:
         raise InputError(f"{path}: {exc}") from None

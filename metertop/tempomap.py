@@ -262,10 +262,11 @@ def _tracks_from_midi(path: str) -> list[_Track]:
 
 
 def _tracks_from_table(notes) -> list[_Track]:
-    """One track for an onset list; notes without a pitch become wood-block hits on the drum channel."""
+    """Tracks for an onset list: pitched notes on one, drum hits and notes without a pitch (as wood-block hits) on the drum channel."""
     t = np.asarray(notes.onsets_s, dtype=np.float64)
     dur = np.where(np.isfinite(notes.durations_s), notes.durations_s, _ONSET_LENGTH_S)
-    pitched = np.asarray(notes.pitches) >= 0
+    drum = np.asarray(notes.is_drum, dtype=bool)
+    pitched = (np.asarray(notes.pitches) >= 0) & ~drum
     w = np.asarray(notes.weights, dtype=np.float64)
     vel = np.asarray(notes.velocities, dtype=np.float64)
     if np.all(np.isnan(vel)):
@@ -276,7 +277,7 @@ def _tracks_from_table(notes) -> list[_Track]:
     out = []
     for is_drum, sel in ((False, pitched), (True, ~pitched)):
         if np.any(sel):
-            pitch = np.clip(np.where(pitched, notes.pitches, _ONSET_PITCH), 0, 127)[sel]
+            pitch = np.clip(np.where(pitched | drum, notes.pitches, _ONSET_PITCH), 0, 127)[sel]
             rows = np.column_stack([t[sel], t[sel] + np.maximum(dur[sel], 0.01), pitch, np.clip(np.round(vel[sel]), 1, 127)])
             out.append(_Track("onsets" if is_drum else "notes", 0, is_drum, rows))
     return out
@@ -364,16 +365,17 @@ def write_tempo_map(result: MetreResult, source, target, *, force: bool = False,
     source : str, os.PathLike or NoteTable
         The analysed file: a MIDI file's tracks are copied whole (notes,
         programs, controllers, pitch bends, at their original times); an
-        onset list's notes are written on one track (onsets without a pitch
-        as wood-block hits on the drum channel).
+        onset list's notes are written on a track of pitched notes and one
+        on the drum channel for drum hits and onsets without a pitch (as
+        wood-block hits).
     target : str or os.PathLike
         The file to write. It may not be the source, and an existing file is
         replaced only with ``force``; the write is atomic.
     notes : NoteTable, optional
         The notes already read from ``source`` (not a MIDI file): written
         instead of reading the file again. A recording's detected onsets
-        come this way, as wood-block hits whose velocity follows their
-        strength.
+        come this way, as wood-block hits (or, from a drum kit, its drum
+        hits) whose velocity follows their strength.
 
     Returns
     -------

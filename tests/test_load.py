@@ -192,6 +192,31 @@ def test_json_array_of_objects(tmp_path):
     assert notes.pitches.tolist() == [-1, 64, -1]
 
 
+def test_drum_column_marks_drum_hits(tmp_path):
+    """A ``drum`` column (General MIDI percussion key, an open standard) makes a row a drum hit; a kick and a bass C2 on 36 stay two notes."""
+    path = tmp_path / "kit.csv"
+    path.write_text("time_s,weight,pitch,drum\n0.0,1,,36\n0.0,0.5,,42\n0.0,1,36,\n0.5,0.8,,38\n")
+    notes = load_notes(path)
+    assert notes.onsets_s.tolist() == [0.0, 0.0, 0.0, 0.5]
+    assert list(zip(notes.pitches.tolist(), notes.is_drum.tolist())) == [(36, False), (36, True), (42, True), (38, True)]
+    js = tmp_path / "kit.json"
+    js.write_text(json.dumps([{"time_s": 0.0, "drum": 36}, {"time_s": 0.5, "drum": 38, "weight": 0.8}, {"time_s": 0.5, "pitch": 60}]))
+    notes = load_notes(js)
+    assert list(zip(notes.pitches.tolist(), notes.is_drum.tolist())) == [(36, True), (38, True), (60, False)]
+
+
+@pytest.mark.parametrize("body, message", [
+    ("time_s,pitch,drum\n0.0,36,36\n", "both a pitch and a drum"),
+    ("time_s,drum\n0.0,200\n", "drum 200 is not a MIDI note number"),
+    ("time_s,drum\n0.0,kick\n", "drum"),
+])
+def test_bad_drum_values(tmp_path, body, message):
+    path = tmp_path / "bad.csv"
+    path.write_text(body)
+    with pytest.raises(InputError, match=message):
+        load_notes(path)
+
+
 # ---- errors: every bad input is an InputError ----
 
 def test_missing_file(tmp_path):

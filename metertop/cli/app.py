@@ -24,7 +24,7 @@ def _fail(message: str, code: int = 2) -> None:
     raise typer.Exit(code)
 
 
-def _settings(merge_ms: float, engine: str, band_weights: str | None = None):
+def _settings(merge_ms: float, engine: str, band_weights: str | None = None, kit: bool | None = None):
     """Pipeline settings from the shared command-line options, or a one-line error."""
     from ..flux import FluxSettings
     from ..persistence import ENGINES
@@ -34,11 +34,11 @@ def _settings(merge_ms: float, engine: str, band_weights: str | None = None):
         _fail(f"unknown engine '{engine}'; choose one of: {', '.join(ENGINES)}")
     if not merge_ms >= 0 or merge_ms > 1000:
         _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
-    audio = FluxSettings()
+    audio = FluxSettings(kit=kit)
     if band_weights is not None:
         try:
             weights = tuple(float(v) for v in band_weights.split(","))
-            audio = FluxSettings(band_weights=weights)
+            audio = FluxSettings(band_weights=weights, kit=kit)
         except ValueError:
             _fail(f"--band-weights takes three numbers LOW,MID,HIGH, not negative and not all 0 (e.g. 2,1.5,1); got '{band_weights}'")
     return Settings(merge_window_s=merge_ms / 1000.0, engine=engine, audio=audio)
@@ -75,6 +75,7 @@ def analyse_cmd(
     write_score: Optional[Path] = typer.Option(None, "--write-score", help="Score input: write the transcription back as MusicXML (.musicxml, .xml, .mxl), barred in the chosen reading."),
     onsets_out: Optional[Path] = typer.Option(None, "--onsets-out", help="Write the onsets analysed (a recording's detected onsets) as a CSV onset list, to inspect, correct and analyse again."),
     band_weights: Optional[str] = typer.Option(None, "--band-weights", help="Recordings: weight of the low (kick-like), mid (snare-like) and high bands in each onset's strength, as LOW,MID,HIGH (default 4,2,1)."),
+    kit: Optional[bool] = typer.Option(None, "--kit/--no-kit", help="Recordings: read the onsets as a drum kit (kick, snare and cymbals told apart by their bands), or as unpitched onsets. Default: decided from the sound."),
     force: bool = typer.Option(False, "--force", help="Replace output files that exist."),
 ) -> None:
     """Propose the metric tree of each FILE: time signature, tempo, beats and downbeats."""
@@ -84,7 +85,7 @@ def analyse_cmd(
     from .score_files import analyse_score_file, check_score_options
     from .writeback import analyse_one, check_options
 
-    settings = _settings(merge_ms, engine, band_weights)
+    settings = _settings(merge_ms, engine, band_weights, kit)
     scores = [is_score_path(f) for f in files]
     if any(scores) or write_score is not None or tune:
         problem = check_score_options(list(files), write_score, reading if reading is not None else 1, tune)

@@ -19,7 +19,7 @@ _SHOW_BARS = 12
 
 @app.command("check")
 def check_cmd(
-    file: Path = typer.Argument(..., help="A MIDI file (.mid) or an onset list (.csv, .tsv, .txt, .json)."),
+    file: Path = typer.Argument(..., help="A MIDI file (.mid), an onset list (.csv, .tsv, .txt, .json) or a recording (.wav, .flac, .ogg)."),
     time_signature: Optional[str] = typer.Option(
         None, "--time-signature", "-s",
         help="The notated time signature to check, e.g. 3/4, 6/8, 7/8 or 2+2+3/8. Default: the file's own time-signature events."),
@@ -28,10 +28,12 @@ def check_cmd(
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event."),
     plot: Optional[Path] = typer.Option(None, "--plot", help="Also draw the four-panel figure, with the notated grid beside the proposed one (.png, .svg or .pdf)."),
     force: bool = typer.Option(False, "--force", help="Replace the --plot file if it exists."),
+    kit: Optional[bool] = typer.Option(None, "--kit/--no-kit", help="Recordings: read the onsets as a drum kit (kick, snare and cymbals told apart by their bands), or as unpitched onsets. Default: decided from the sound."),
 ) -> None:
     """Check a notated time signature against the playing: consistent (exit 0), inconsistent (1) or ambiguous (3)."""
     from .._version import __version__
     from ..check import check_file
+    from ..flux import FluxSettings
     from ..pipeline import Settings
 
     if not merge_ms >= 0 or merge_ms > 1000:
@@ -42,7 +44,7 @@ def check_cmd(
         prepare_plot(plot, file, force)
     try:
         report = check_file(file, time_signature, tracks=list(track) if track else None,
-                            settings=Settings(merge_window_s=merge_ms / 1000.0))
+                            settings=Settings(merge_window_s=merge_ms / 1000.0, audio=FluxSettings(kit=kit)))
     except MetertopError as exc:
         message = str(exc)
         _fail(message if str(file) in message else f"{file}: {message}")

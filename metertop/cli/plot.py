@@ -41,15 +41,16 @@ def draw_and_save(source: Path, out: Path, *, force: bool, tracks, settings):
 
 @app.command("plot")
 def plot_cmd(
-    file: Path = typer.Argument(..., help="A MIDI file (.mid) or an onset list (.csv, .tsv, .txt, .json)."),
+    file: Path = typer.Argument(..., help="A MIDI file (.mid), an onset list (.csv, .tsv, .txt, .json) or a recording (.wav, .flac, .ogg)."),
     out: Path = typer.Option(..., "--out", "-o", help="The figure to write: .png, .svg or .pdf."),
     force: bool = typer.Option(False, "--force", help="Replace OUT if it exists."),
     track: Optional[List[int]] = typer.Option(None, "--track", "-t", help="MIDI track index to use (repeatable); see 'metertop tracks'. Default: all."),
     merge_ms: float = typer.Option(35.0, "--merge-ms", help="Merge onsets closer than this many milliseconds into one event (chords, flams)."),
     engine: str = typer.Option("dionysus", "--engine", help="Persistence engine: dionysus, or unionfind (the exact fast path; same results)."),
+    kit: Optional[bool] = typer.Option(None, "--kit/--no-kit", help="Recordings: read the onsets as a drum kit (kick, snare and cymbals told apart by their bands), or as unpitched onsets. Default: decided from the sound."),
 ) -> None:
     """Draw FILE's analysis as one figure: the cycle scan, the persistence at bar length, the phase circles and the onset strip."""
-    settings = _settings(merge_ms, engine)
+    settings = _settings(merge_ms, engine, kit=kit)
     prepare_plot(out, file, force)
     try:
         analysis = draw_and_save(file, out, force=force, tracks=track, settings=settings)
