@@ -43,6 +43,12 @@ Method
    Dividing each band's flux by its number of bins first (a kick's flux
    sits in a few low bins) found more downbeats but fewer metres there
    (docs/audio.md), so the flux is summed over the bins as it is.
+6. The kit reading (:func:`is_kit`, :func:`kit_strokes`): a recording whose
+   onsets often carry most of their flux in the high band is read as a drum
+   kit, and each onset as the drums its band levels show (kick, snare,
+   hi-hat, crash; General MIDI keys), each band read at its largest within
+   ``band_window_s`` of the onset and against its own percentile over the
+   recording (docs/audio.md, "The kit reading").
 
 References
 ----------
