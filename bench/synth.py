@@ -11,6 +11,12 @@ Conventions
   the snare, claps, hi-hats and cymbals are noise bursts through Butterworth
   filters (scipy.signal) with exponential decays. Each drum has a few
   seeded variants, so that repeated hits are not bit-identical.
+- ``kit="other"`` voices the drums differently, to see how far the kit
+  reading's fixed levels (chosen on the first kit) carry: a longer, higher
+  kick with a beater click (a 3 ms noise burst above 2 kHz), a brighter
+  snare with a lower body (noise 1-9 kHz), hi-hats above 5 kHz, a ride
+  band-passed 3-12 kHz with a bell tone, a crash above 3 kHz, toms lower
+  and longer.
 - Pitched notes are plain harmonic tones: 6 partials at amplitudes 1/k, a
   10 ms attack, an exponential decay over the note and a 30 ms release.
 - Loudness follows the MIDI velocity: amplitude ``(velocity / 127) ** 2``
@@ -61,6 +67,32 @@ def _falling_sine(sample_rate: int, length_s: float, f_start: float, f_end: floa
     return np.sin(phase) * np.exp(-t / decay_s)
 
 
+def _other_drum(kind: str, pitch: int, rng, sr: int) -> np.ndarray:
+    """The drums of ``kit="other"`` (see the module notes)."""
+    top = 0.45 * sr
+    if kind == "kick":
+        click = np.zeros(int(0.45 * sr))
+        burst = _noise_burst(rng, sr, 0.003, 0.001, "highpass", min(2000.0, 0.4 * sr))
+        click[:len(burst)] = 0.3 * burst
+        return _falling_sine(sr, 0.45, 160.0, 60.0, 0.02, 0.2) + click
+    if kind == "tom":
+        base = 70.0 + 10.0 * (pitch - 41)
+        return 0.8 * _falling_sine(sr, 0.5, base * 1.6, base, 0.05, 0.22)
+    if kind == "snare":
+        body = 0.6 * _falling_sine(sr, 0.25, 190.0, 150.0, 0.02, 0.06)
+        return 0.7 * _noise_burst(rng, sr, 0.25, 0.08, "bandpass", (1000.0, min(9000.0, top))) + body
+    if kind in ("closed_hat", "open_hat"):
+        decay = 0.03 if kind == "closed_hat" else 0.2
+        return 0.3 * _noise_burst(rng, sr, 8 * decay, decay, "highpass", min(5000.0, 0.4 * sr))
+    if kind == "ride":
+        t = np.arange(int(0.8 * sr)) / sr
+        bell = 0.15 * np.sin(2 * np.pi * 1150.0 * t) * np.exp(-t / 0.3)
+        return 0.3 * _noise_burst(rng, sr, 0.8, 0.35, "bandpass", (3000.0, min(12000.0, top))) + bell
+    if kind == "crash":
+        return 0.5 * _noise_burst(rng, sr, 2.0, 0.8, "highpass", min(3000.0, 0.4 * sr))
+    return 0.4 * _noise_burst(rng, sr, 0.1, 0.03, "bandpass", (600.0, min(3000.0, top)))
+
+
 def _drum_kind(pitch: int) -> str:
     if pitch in (35, 36):
         return "kick"
@@ -79,10 +111,14 @@ def _drum_kind(pitch: int) -> str:
     return "perc"
 
 
-@lru_cache(maxsize=256)
-def _drum(kind: str, pitch: int, variant: int, sample_rate: int) -> np.ndarray:
+@lru_cache(maxsize=512)
+def _drum(kind: str, pitch: int, variant: int, sample_rate: int, kit: str = "standard") -> np.ndarray:
     rng = np.random.default_rng([pitch, variant, sample_rate])
     sr = sample_rate
+    if kit == "other":
+        return _other_drum(kind, pitch, rng, sr)
+    if kit != "standard":
+        raise ValueError(f"unknown kit {kit!r}: standard or other")
     if kind == "kick":
         return _falling_sine(sr, 0.35, 110.0, 50.0, 0.03, 0.12)
     if kind == "tom":
@@ -120,7 +156,7 @@ def _tone(pitch: int, duration_s: float, sample_rate: int) -> np.ndarray:
 
 
 def synthesise(onsets_s, durations_s, pitches, velocities, is_drum, *, sample_rate: int = SAMPLE_RATE,
-               seed: int = 0, tail_s: float = 1.0) -> np.ndarray:
+               seed: int = 0, tail_s: float = 1.0, kit: str = "standard") -> np.ndarray:
     """Render notes as audio: drums for ``is_drum`` notes, harmonic tones for the rest.
 
     Parameters
@@ -132,6 +168,8 @@ def synthesise(onsets_s, durations_s, pitches, velocities, is_drum, *, sample_ra
         Chooses each drum hit's variant.
     tail_s : float
         Silence after the last note's end.
+    kit : str
+        ``"standard"``, or ``"other"`` for the differently voiced kit.
     """
     t = np.asarray(onsets_s, float)
     d = np.nan_to_num(np.asarray(durations_s, float), nan=0.2)
@@ -140,13 +178,13 @@ def synthesise(onsets_s, durations_s, pitches, velocities, is_drum, *, sample_ra
     drum = np.asarray(is_drum, bool)
     rng = np.random.default_rng(seed)
     variants = rng.integers(0, _VARIANTS, len(t))
-    lengths = [len(_drum(_drum_kind(int(pi)), int(pi), 0, sample_rate)) if dr else int((di + 0.03) * sample_rate) + 1
+    lengths = [len(_drum(_drum_kind(int(pi)), int(pi), 0, sample_rate, kit)) if dr else int((di + 0.03) * sample_rate) + 1
                for pi, di, dr in zip(p, d, drum)]
     end = max((int(round(ti * sample_rate)) + n for ti, n in zip(t, lengths)), default=0)
     out = np.zeros(end + int(tail_s * sample_rate), dtype=np.float64)
     for ti, di, pi, vi, dr, var in zip(t, d, p, v, drum, variants):
         start = int(round(ti * sample_rate))
-        sound = _drum(_drum_kind(int(pi)), int(pi), int(var), sample_rate) if dr else _tone(int(pi), float(di), sample_rate)
+        sound = _drum(_drum_kind(int(pi)), int(pi), int(var), sample_rate, kit) if dr else _tone(int(pi), float(di), sample_rate)
         out[start:start + len(sound)] += (vi / 127.0) ** 2 * sound
     top = np.max(np.abs(out))
     return (out * (0.9 / top) if top > 0 else out).astype(np.float32)
