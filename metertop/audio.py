@@ -31,7 +31,7 @@ from .flux import FluxSettings, detect_onsets, is_kit, kit_strokes
 from .limits import LimitError
 
 __all__ = ["AUDIO_SUFFIXES", "AUDIO_MAGIC", "MAX_AUDIO_BYTES", "MAX_AUDIO_S", "read_audio", "audio_notes", "onsets_csv",
-           "is_audio_file", "require_soundfile"]
+           "is_audio_file", "require_soundfile", "recording_summary", "recording_line"]
 
 AUDIO_SUFFIXES = (".wav", ".wave", ".flac", ".ogg", ".oga")
 # The first four bytes of the containers soundfile reads for us.
@@ -118,6 +118,38 @@ def audio_notes(path: str | os.PathLike, settings: FluxSettings | None = None):
     idx, keys, levels = kit_strokes(onsets.bands, settings)
     levels = _decimal(np.maximum(levels, 1e-6), "{:.6g}")
     return replace(notes_from_onsets(times[idx], levels, keys, np.ones(len(idx), bool)), source="audio")
+
+
+def recording_summary(notes) -> dict:
+    """How a recording was read: its onsets, whether as a drum kit, and the hits of each drum.
+
+    >>> from metertop.load import notes_from_onsets
+    >>> kit = notes_from_onsets([0.0, 0.0, 0.5], [1, 1, 1], [36, 42, 38], [True, True, True])
+    >>> recording_summary(kit)
+    {'onsets': 2, 'kit': True, 'hits': {'kick': 1, 'snare': 1, 'hi-hat': 1}}
+    """
+    from .flux import KIT_KEYS
+
+    onsets = int(len(np.unique(np.asarray(notes.onsets_s))))
+    drums = np.asarray(notes.is_drum, dtype=bool)
+    if not drums.any():
+        return {"onsets": onsets, "kit": False}
+    names = {KIT_KEYS["kick"]: "kick", KIT_KEYS["snare"]: "snare", KIT_KEYS["hat"]: "hi-hat", KIT_KEYS["crash"]: "crash"}
+    keys = np.asarray(notes.pitches)[drums].tolist()
+    hits: dict[str, int] = {}
+    for name in [*names.values(), "other"]:
+        n = sum(1 for k in keys if names.get(k, "other") == name)
+        if n:
+            hits[name] = n
+    return {"onsets": onsets, "kit": True, "hits": hits}
+
+
+def recording_line(summary: dict) -> str:
+    """The summary's line for a recording."""
+    if not summary["kit"]:
+        return f"recording: {summary['onsets']} onsets, read as plain onsets (--kit reads them as a drum kit)"
+    hits = ", ".join(f"{name} {n}" for name, n in summary["hits"].items())
+    return f"recording: {summary['onsets']} onsets, read as a drum kit: {hits} (--no-kit reads them as plain onsets)"
 
 
 def _decimal(values: np.ndarray, fmt: str) -> np.ndarray:

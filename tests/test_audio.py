@@ -278,8 +278,12 @@ def test_melody_is_not_a_kit_unless_asked(grace_wav, grooves):
     groove = synthesise(onsets, durations, pitches, velocities, is_drum, sample_rate=SR, seed=1)
     assert _notes_of(groove).is_drum.all()
     assert not _notes_of(groove, FluxSettings(kit=False)).is_drum.any()
-    res = runner.invoke(app, ["analyse", "--json", "--no-kit", str(path)])
-    assert res.exit_code == 0, res.stderr
+    for option, kit in (("--no-kit", False), ("--kit", True)):
+        res = runner.invoke(app, ["analyse", "--json", option, str(path)])
+        assert res.exit_code == 0, res.stderr
+        assert json.loads(res.stdout)["recording"]["kit"] is kit
+    res = runner.invoke(app, ["analyse", str(path)])
+    assert "read as plain onsets (--kit reads them as a drum kit)" in res.stdout
 
 
 def test_kit_onsets_read_back_and_write_as_drums(grooves, tmp_path):
@@ -298,6 +302,7 @@ def test_kit_onsets_read_back_and_write_as_drums(grooves, tmp_path):
     again = runner.invoke(app, ["analyse", "--json", str(csv_out)])
     back = json.loads(again.stdout)
     assert (line.pop("source"), back.pop("source")) == ("audio", "onsets")
+    recording = line.pop("recording")
     assert line.pop("written") and back == line
     from metertop.load import load_notes
 
@@ -305,6 +310,8 @@ def test_kit_onsets_read_back_and_write_as_drums(grooves, tmp_path):
     pm = pretty_midi.PrettyMIDI(str(mid_out))
     drums = [inst for inst in pm.instruments if inst.is_drum]
     assert len(drums) == 1 and not [inst for inst in pm.instruments if not inst.is_drum]
+    assert recording["kit"] and recording["onsets"] == len(np.unique(notes.onsets_s))
+    assert sum(recording["hits"].values()) == len(notes) and {"kick", "snare", "hi-hat"} <= set(recording["hits"])
     written = sorted((n.pitch, n.start) for n in drums[0].notes)
     detected = sorted(zip(notes.pitches.tolist(), notes.onsets_s.tolist()))
     assert [k for k, _ in written] == [k for k, _ in detected]
@@ -326,6 +333,7 @@ def test_analyse_a_recording_and_read_its_onsets_back(grace_wav, tmp_path):
     again = runner.invoke(app, ["analyse", "--json", str(out)])
     assert again.exit_code == 0, again.stderr
     line.pop("written")
+    assert line.pop("recording") == {"onsets": len(out.read_text().splitlines()) - 1, "kit": False}
     back = json.loads(again.stdout)
     assert (line.pop("source"), back.pop("source")) == ("audio", "onsets")
     assert back == line

@@ -46,7 +46,8 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
         With the chosen reading; ``analysis.result`` is what is reported.
     extra : dict
         Keys added to the JSON line: ``check`` (the verdict on a given time
-        signature) and ``written`` (the files written).
+        signature), ``recording`` (how a recording was read) and
+        ``written`` (the files written).
     lines : list of str
         Warnings and notes for the text summary.
     """
@@ -61,13 +62,20 @@ def analyse_one(path: Path, tracks, settings, time_signature: str | None, readin
     extra, lines = {}, []
     written = []
     from_audio = analysis.notes is not None and analysis.notes.source == "audio"
+    if from_audio:
+        from ..audio import recording_line, recording_summary
+
+        extra["recording"] = recording_summary(analysis.notes)
+        lines.append(recording_line(extra["recording"]))
     if onsets_out is not None:
         from ..audio import onsets_csv
 
         target = check_target(onsets_out, inputs=[path], force=force)
         atomic_write(target, onsets_csv(analysis.notes))
         written.append(str(onsets_out))
-        lines.append(f"wrote {onsets_out}: {len(analysis.notes)} onsets")
+        n_onsets = len(np.unique(analysis.notes.onsets_s))
+        rows = f"{len(analysis.notes)} rows, " if len(analysis.notes) != n_onsets else ""
+        lines.append(f"wrote {onsets_out}: {rows}{n_onsets} onsets")
     if time_signature is not None:
         verdict = check_notated(analysis, time_signature)
         analysis = choose_reading(analysis, time_signature=time_signature)
