@@ -22,7 +22,7 @@ check-boost:
 	@bash .ci/ensure_boost.sh
 
 demo: $(STAMP)
-	$(BIN)/metertop analyse demo_rhythms/*.mid demo_rhythms/*.csv demo_rhythms/*.abc demo_rhythms/*.musicxml
+	$(BIN)/metertop analyse demo_rhythms/*.mid demo_rhythms/*.csv demo_rhythms/*.ogg demo_rhythms/*.abc demo_rhythms/*.musicxml
 
 # The README's demo figure (docs/), drawn again from the demo file.
 figures: $(STAMP)

@@ -7,8 +7,10 @@ festival.  Every piece is composed here from small rhythm cells, then
 true metre of each file is written beside it as ``<stem>.truth.json``.
 
 Run ``python demo_rhythms/make_demo.py [--out DIR] [--check]``.  All
-randomness comes from fixed seeds, so the output is the same on every run;
-the script only (re)writes its own output files.
+randomness comes from fixed seeds, so the output is the same on every run
+(for the phone recording, its decoded audio: the Ogg container gets a random
+stream serial number); the script only (re)writes its own output files. The
+recording needs soundfile (the ``audio`` extra) and ``bench/synth.py``.
 """
 
 from __future__ import annotations
@@ -877,11 +879,45 @@ def generate(out_dir: Path) -> list[Path]:
         truth_path.write_text(truth_to_json(truth))
         print(f"wrote {data_path.name} and {truth_path.name}")
         written.append(data_path)
+    written.append(write_recording(out_dir))
     return written
+
+
+# The drummer's phone recording of the deck groove: its notes synthesised as a
+# kit (bench/synth.py: decaying sines and filtered noise bursts) over the
+# harbour's hiss (white noise at 30 dB SNR), saved as Ogg Vorbis at 22.05 kHz.
+RECORDING_OF = "tidewater_deck_groove_4-4"
+RECORDING = "tidewater_deck_groove_4-4_phone.ogg"
+RECORDING_RATE = 22_050
+
+
+def write_recording(out_dir: Path) -> Path:
+    """Write the phone recording of the deck groove and its truth file (the groove's, as the notes are the same)."""
+    import sys
+
+    import soundfile as sf
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "bench"))
+    from synth import add_noise, synthesise
+
+    pm = pretty_midi.PrettyMIDI(str(out_dir / f"{RECORDING_OF}.mid"))
+    notes = sorted((n.start, n.end, n.pitch, n.velocity, inst.is_drum) for inst in pm.instruments for n in inst.notes)
+    start, end, pitch, velocity, drum = (np.array(col) for col in zip(*notes))
+    audio = synthesise(start, end - start, pitch, velocity, drum, sample_rate=RECORDING_RATE, seed=7)
+    path = out_dir / RECORDING
+    sf.write(str(path), add_noise(audio, 30.0, seed=8), RECORDING_RATE, format="OGG", subtype="VORBIS")
+    truth = json.loads((out_dir / f"{RECORDING_OF}.truth.json").read_text())
+    truth.update(file=RECORDING, notated_time_signature=None,
+                 description="The same warm-up on the ferry deck, as the drummer's phone recorded it over the harbour's hiss.")
+    (out_dir / f"{Path(RECORDING).stem}.truth.json").write_text(truth_to_json(truth))
+    print(f"wrote {RECORDING} and {Path(RECORDING).stem}.truth.json")
+    return path
 
 
 def load_onsets(path: Path) -> tuple[np.ndarray, str]:
     """Onset times of a demo file and a one-line summary of its content."""
+    if path.suffix == ".ogg":
+        path = path.with_name(f"{RECORDING_OF}.mid")  # the recording's notes
     if path.suffix == ".csv":
         with open(path) as fh:
             times = np.array([float(row["time_s"]) for row in csv.DictReader(fh)])

@@ -1,7 +1,7 @@
 """The bundled demo rhythms against their ground-truth files.
 
-The demo pieces are invented (demo_rhythms/README.md); each ``X.mid`` or
-``X.csv`` has ``X.truth.json`` beside it. Downbeat accuracy uses mir_eval's
+The demo pieces are invented (demo_rhythms/README.md); each ``X.mid``,
+``X.csv`` or ``X.ogg`` (a recording) has ``X.truth.json`` beside it. Downbeat accuracy uses mir_eval's
 F-measure at +-70 ms, the reference implementation (Dixon 2006; Davies,
 Degara & Plumbley 2009).
 """
@@ -18,7 +18,7 @@ import metertop
 
 from conftest import DEMO_DIR
 
-DEMO_FILES = sorted(p for p in DEMO_DIR.iterdir() if p.suffix in (".mid", ".csv") and not p.name.endswith(".truth.json"))
+DEMO_FILES = sorted(p for p in DEMO_DIR.iterdir() if p.suffix in (".mid", ".csv", ".ogg") and not p.name.endswith(".truth.json"))
 
 
 def _truth(path):
