@@ -228,14 +228,14 @@ def _without_path(message: str, path: str) -> str:
 
 def _analyse_payload(task: Task, options: BatchOptions):
     """Analyse file contents sent from elsewhere, under the file's own name (its suffix chooses the reader)."""
-    from .pipeline import analyse
+    from .pipeline import analyse_detailed
 
     with tempfile.TemporaryDirectory(prefix="metertop-") as folder:
         local = os.path.join(folder, os.path.basename(task.path) or "input")
         with open(local, "wb") as handle:
             handle.write(task.payload)
         try:
-            return analyse(local, tracks=list(options.tracks) if options.tracks else None, settings=options.settings())
+            return analyse_detailed(local, tracks=list(options.tracks) if options.tracks else None, settings=options.settings())
         except MetertopError as exc:
             raise type(exc)(str(exc).replace(local, task.path)) from None
 
@@ -247,18 +247,24 @@ def analyse_task(task: Task, options: BatchOptions) -> str:
     returns only plain, picklable values.
     """
     from .export import to_json_line
-    from .pipeline import analyse
+    from .pipeline import analyse_detailed
 
     try:
         if task.payload is not None:
-            result = _analyse_payload(task, options)
+            analysis = _analyse_payload(task, options)
         else:
-            result = analyse(task.path, tracks=list(options.tracks) if options.tracks else None, settings=options.settings())
+            analysis = analyse_detailed(task.path, tracks=list(options.tracks) if options.tracks else None, settings=options.settings())
     except MetertopError as exc:
         return error_line(task, options, _without_path(str(exc), task.path))
     except Exception as exc:  # a bug must not stop a corpus run; the line says what happened
         return error_line(task, options, f"internal error ({type(exc).__name__}: {exc}); please report it")
-    return to_json_line(result, path=task.path, status="ok", error=None, file=task.file_dict(), options=options.to_dict())
+    extra = {}
+    if analysis.notes is not None and analysis.notes.source == "audio":
+        from .audio import recording_summary
+
+        extra["recording"] = recording_summary(analysis.notes)  # as 'metertop analyse --json' gives it
+    return to_json_line(analysis.result, path=task.path, status="ok", error=None, file=task.file_dict(),
+                        options=options.to_dict(), **extra)
 
 
 # ---- local worker processes ----------------------------------------------------------------

@@ -287,14 +287,14 @@ def test_worker_crash_gives_error_line(tmp_path, corpus, monkeypatch):
         pytest.skip("the crash is planted through fork, which copies the patched module into the workers")
     import metertop.pipeline
 
-    original = metertop.pipeline.analyse
+    original = metertop.pipeline.analyse_detailed
 
     def crash_on_marked(source, **kwargs):
         if "crash" in str(source):
             os._exit(3)
         return original(source, **kwargs)
 
-    monkeypatch.setattr(metertop.pipeline, "analyse", crash_on_marked)
+    monkeypatch.setattr(metertop.pipeline, "analyse_detailed", crash_on_marked)
     good = corpus[1]
     crash = tmp_path / "crash.mid"
     crash.write_bytes(good[0].read_bytes())
@@ -427,3 +427,23 @@ def test_progress_bar_quiet_off_a_terminal():
     bar.update(3)
     bar.close()
     assert stream.getvalue() == ""
+
+
+def test_recordings_in_a_batch_match_analyse(tmp_path):
+    """A recording found with --suffix .ogg (the demo's phone recording of its drum groove, synthesised) gets the line
+    'metertop analyse --json' gives it, 'recording' (read as a drum kit) included, plus the batch keys."""
+    pytest.importorskip("soundfile")
+    import shutil
+
+    src = REPO / "demo_rhythms" / "tidewater_deck_groove_4-4_phone.ogg"
+    folder = tmp_path / "takes"
+    folder.mkdir()
+    take = folder / src.name
+    shutil.copy(src, take)
+    out = tmp_path / "results.jsonl"
+    res = _run("batch", folder, "--suffix", ".ogg", "-o", out, "--jobs", 1)
+    assert res.exit_code == 0, res.stderr
+    (line,) = _lines(out)
+    single = json.loads(_run("analyse", "--json", take).stdout)
+    assert line["status"] == "ok" and line["recording"]["kit"] is True
+    assert _analysis_only(line) == single
