@@ -64,7 +64,8 @@ def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
     ------
     InputError
         If soundfile is missing, the file is not a readable WAV, FLAC or OGG
-        file, holds no samples, or is longer than :data:`MAX_AUDIO_S`.
+        file, holds no samples or samples that are not finite, or is longer
+        than :data:`MAX_AUDIO_S`.
     """
     sf = require_soundfile()
     path = os.fspath(path)
@@ -82,7 +83,11 @@ def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
                 block = f.read(min(_BLOCK_FRAMES, frames - done), dtype="float32", always_2d=True)
                 if len(block) == 0:
                     break
-                mono[done:done + len(block)] = block.mean(axis=1) if channels > 1 else block[:, 0]
+                if not np.isfinite(block).all():  # NaN or inf in a float file, or a double beyond float32's range
+                    raise InputError(f"{path}: the recording holds samples that are not finite numbers "
+                                     "(NaN or infinity, or beyond the range of 32-bit floats)")
+                # The mean in float64: summing channels near float32's largest value would overflow.
+                mono[done:done + len(block)] = block.mean(axis=1, dtype=np.float64) if channels > 1 else block[:, 0]
                 done += len(block)
     except InputError:
         raise
