@@ -522,3 +522,42 @@ def test_samples_that_are_not_finite_in_any_channel_are_refused(tmp_path, case):
         read_audio(path)
     outcome = run_cli(["analyse", str(path)])
     assert outcome.verdict == "refused" and str(path) in outcome.detail and "not finite" in outcome.detail, outcome
+
+
+@pytest.mark.parametrize("sr", [100, 150, 300, 1000])
+def test_onsets_at_very_low_sample_rates(sr):
+    """Found by the recordings fuzzer: below about 300 Hz both band edges lie above the Nyquist frequency, the high band
+    had no bins and the flux sum indexed past the spectrum (IndexError). Every band now keeps at least one bin, and
+    clicks at known times are found, each at most half an FFT frame early (the frame that first holds the click)."""
+    from metertop.flux import _band_slices
+
+    n_fft, _ = FluxSettings().frame_samples(sr)
+    bands = _band_slices(n_fft, sr, FluxSettings().band_edges_hz)
+    assert bands[0].start == 1 and bands[-1].stop == n_fft // 2 + 1
+    assert all(b.stop > b.start for b in bands) and all(a.stop == b.start for a, b in zip(bands, bands[1:]))
+    times = np.array([0.5, 1.0, 1.5, 2.25, 2.75, 3.5])
+    found = detect_onsets(_clicks(times, sr=sr, length_s=4.0), sr).times_s
+    assert len(found) == len(times)
+    assert np.all(times - found >= 0) and np.all(times - found <= n_fft / 2 / sr)
+
+
+@pytest.mark.parametrize("rate", [7, 0x7FFFFFFF])
+def test_damaged_sample_rate_is_refused_before_the_onset_detector(tmp_path, monkeypatch, rate):
+    """Found by the recordings fuzzer: a WAV header whose sample rate was overwritten with 7 Hz crashed the detector,
+    and with 2**31 - 1 Hz took 20 s on a 12 ms file (46 ms frames of a hundred million samples). Rates outside
+    100 Hz to 768 kHz are refused, naming the rate, before the detector runs."""
+    import metertop.audio as audio
+
+    def no_detector(*args, **kwargs):
+        raise AssertionError("the onset detector ran on a damaged sample rate")
+
+    monkeypatch.setattr(audio, "detect_onsets", no_detector)
+    data = bytearray(_wav_bytes(_clicks([0.1, 0.3, 0.5], length_s=1.0), SR, "PCM_16"))
+    assert data[12:16] == b"fmt "  # the plain 44-byte header: the rate is at byte 24 (RIFF WAVE, Microsoft)
+    data[24:28] = rate.to_bytes(4, "little")
+    path = tmp_path / "rate.wav"
+    path.write_bytes(bytes(data))
+    with pytest.raises(InputError, match=f"a sample rate of {rate:,} Hz"):
+        audio.audio_notes(path)
+    outcome = run_cli(["analyse", str(path)])
+    assert outcome.verdict == "refused" and "sample rate" in outcome.detail, outcome
