@@ -256,6 +256,10 @@ def _encode(x: np.ndarray, rate: int, fmt: str) -> tuple[str, bytes]:
     import soundfile as sf
 
     container, subtype, _ = FORMATS[fmt]
+    if subtype not in ("FLOAT", "DOUBLE"):
+        # Only a float file holds values beyond full scale, NaN or inf; and libsndfile's u-law encoder reads past its
+        # table on them (a segfault while writing, found when bench/robust.py's workers died).
+        x = np.clip(np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0), -1.0, 1.0)
     buf = io.BytesIO()
     try:
         sf.write(buf, x, rate, format=container, subtype=subtype)

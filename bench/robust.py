@@ -101,24 +101,49 @@ def _fuzz_chunk(args: tuple[int, int, int]) -> list[dict]:
     return out
 
 
-def _pooled(work, n: int, seed: int, jobs: int, step: int, label: str, every: int) -> list[dict]:
+def _pooled(work, n: int, seed: int, jobs: int, step: int, label: str, every: int, dead: dict) -> list[dict]:
     """Rows of inputs 0..n-1 run by ``work`` over chunks of ``step`` in a pool of ``jobs``, sorted by index; progress
-    on stderr every ``every`` inputs."""
-    chunks = [(seed, lo, min(lo + step, n)) for lo in range(0, n, step)]
+    on stderr every ``every`` inputs.
+
+    A worker that dies (a segfault or an abort inside a C library: nothing Python can catch) breaks the pool; the
+    chunks it took down are run again one input at a time, each input whose own worker dies becomes a crash row
+    (``dead`` with its index), and the run goes on.
+    """
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures.process import BrokenProcessPool
+
     rows: list[dict] = []
-    with mp.get_context("spawn").Pool(jobs) as pool:
-        for part in pool.imap_unordered(work, chunks):
-            rows += part
-            done = len(rows)
-            if done % every < step:
-                print(f"  {label}: {done:,}/{n:,} inputs, {sum(r['crash'] is not None for r in rows)} crashes", file=sys.stderr, flush=True)
+
+    def run(chunks, workers):
+        lost = []
+        with ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn")) as pool:
+            futures = {pool.submit(work, c): c for c in chunks}
+            for fut in as_completed(futures):
+                try:
+                    part = fut.result()
+                except BrokenProcessPool:
+                    lost.append(futures[fut])
+                    continue
+                rows.extend(part)
+                if len(rows) % every < len(part):
+                    print(f"  {label}: {len(rows):,}/{n:,} inputs, {sum(r['crash'] is not None for r in rows)} crashes",
+                          file=sys.stderr, flush=True)
+        return lost
+
+    lost = run([(seed, lo, min(lo + step, n)) for lo in range(0, n, step)], jobs)
+    for _, lo, hi in sorted(lost):
+        for i in range(lo, hi):
+            if run([(seed, i, i + 1)], 1):
+                print(f"  {label}: input {i}: the worker process died", file=sys.stderr, flush=True)
+                rows.append({**dead, "index": i, "crash": "the worker process died (a segfault or abort in a C library)"})
     return sorted(rows, key=lambda r: r["index"])
 
 
 def fuzz(n: int, seed: int, jobs: int) -> dict:
     """Run ``n`` hostile inputs through the command line; counts, crashes and timing."""
     start = time.perf_counter()
-    rows = _pooled(_fuzz_chunk, n, seed, jobs, step=50, label="fuzz", every=1000)
+    rows = _pooled(_fuzz_chunk, n, seed, jobs, step=50, label="fuzz", every=1000,
+                   dead={"case": "?", "family": "?", "verdict": "crash", "seconds": 0.0})
     crashes = [r for r in rows if r["crash"] is not None]
     verdicts = Counter((r["family"], r["verdict"]) for r in rows)
     steps = Counter(step for r in crashes for step in r["case"].split("/")[-1].split("+"))
@@ -151,7 +176,8 @@ def _recordings_chunk(args: tuple[int, int, int]) -> list[dict]:
 def recordings(n: int, seed: int, jobs: int) -> dict:
     """Run ``n`` hostile recordings through the command line; counts, crashes, slow inputs and timing."""
     start = time.perf_counter()
-    rows = _pooled(_recordings_chunk, n, seed, jobs, step=25, label="recordings", every=250)
+    rows = _pooled(_recordings_chunk, n, seed, jobs, step=25, label="recordings", every=250,
+                   dead={"case": "audio/?/?/?", "command": "?", "verdict": "crash", "seconds": 0.0, "bytes": 0})
     crashes = [r for r in rows if r["crash"] is not None]
     slow = [r for r in rows if r["seconds"] > SLOW_S]
 
