@@ -22,7 +22,8 @@ Four parts, each reported in one table (stdout, and in full in
    through the command each input names (``analyse``, with ``--json``,
    ``--kit``, ``--no-kit`` or ``--band-weights``, or ``check -s 4/4``) and
    are judged as above; ``check``'s verdicts (exit 1 and 3) count as
-   results. Inputs slower than ``SLOW_S`` are listed too.
+   results. Inputs slower than ``SLOW_S`` (10 s) are listed too, and
+   count against the run as crashes do (exit code 1).
 3. **Dropped notes.** ``--grooves`` (100) drum grooves of the accuracy
    benchmark (``bench/grooves.py``, the evaluation seed of ``bench/run.py``)
    are analysed whole and with 5% of their notes dropped at random (seeded);
@@ -433,7 +434,8 @@ def main(argv=None) -> int:
     print(text)
     OUT.mkdir(parents=True, exist_ok=True)
     (OUT / f"robust-{res['date'][:10]}.json").write_text(json.dumps(res, indent=1))
-    return 1 if res.get("fuzz", {}).get("crashes") or res.get("recordings", {}).get("crashes") else 0
+    rec = res.get("recordings", {})
+    return 1 if res.get("fuzz", {}).get("crashes") or rec.get("crashes") or rec.get("slow") else 0
 
 
 if __name__ == "__main__":
