@@ -653,7 +653,7 @@ def hostile_inputs(n: int, seed: int) -> Iterator[Hostile]:
 class Outcome:
     """What the command line did with one input.
 
-    ``verdict`` is ``"analysed"`` (exit 0, one JSON line per file, strict JSON,
+    ``verdict`` is ``"analysed"`` (exit 0, or another code that reports a result; with ``--json``, strict JSON,
     nothing on stderr), ``"refused"`` (exit 2, nothing on stdout, exactly one
     line ``metertop: error: ...`` on stderr) or ``"crash"`` (anything else:
     an uncaught exception, a traceback, more than one line, another exit
@@ -665,8 +665,13 @@ class Outcome:
     detail: str
 
 
-def run_cli(args: list[str]) -> Outcome:
-    """Run ``metertop ARGS`` in this process (typer's CliRunner) and judge it (see :class:`Outcome`)."""
+def run_cli(args: list[str], results: tuple[int, ...] = (0,)) -> Outcome:
+    """Run ``metertop ARGS`` in this process (typer's CliRunner) and judge it (see :class:`Outcome`).
+
+    ``results`` are the exit codes that report a result (``check`` also
+    exits 1 for an inconsistent and 3 for an ambiguous verdict); they are
+    judged as exit 0 is.
+    """
     import warnings
 
     from typer.testing import CliRunner
@@ -687,10 +692,10 @@ def run_cli(args: list[str]) -> Outcome:
     err_lines = err.strip().splitlines()
     if "Traceback" in err:
         return Outcome(command, "crash", "traceback on stderr")
-    if res.exit_code == 0:
+    if res.exit_code in results:
         if err.strip():
-            return Outcome(command, "crash", f"exit 0 with stderr: {err_lines[0][:200]}")
-        if command == "analyse" and "--json" in args:
+            return Outcome(command, "crash", f"exit {res.exit_code} with stderr: {err_lines[0][:200]}")
+        if "--json" in args:
             try:
                 for line in out.strip().splitlines():
                     json.loads(line, parse_constant=lambda c: (_ for _ in ()).throw(ValueError(c)))
@@ -702,15 +707,18 @@ def run_cli(args: list[str]) -> Outcome:
     return Outcome(command, "crash", f"exit {res.exit_code}, {len(err_lines)} stderr lines: {' | '.join(err_lines)[:200]}")
 
 
-def main(argv=None) -> int:
+def main(argv=None, build: Callable[[int, int], Hostile] = hostile_input, script: str = "bench/hostile.py") -> int:
+    """Write input ``INDEX`` of the stream ``SEED`` (made by ``build``) to ``OUT_STEM`` and its suffix."""
     args = sys.argv[1:] if argv is None else argv
     if len(args) != 3:
-        print("usage: python bench/hostile.py SEED INDEX OUT_STEM   (writes OUT_STEM + the input's suffix)", file=sys.stderr)
+        print(f"usage: python {script} SEED INDEX OUT_STEM   (writes OUT_STEM + the input's suffix)", file=sys.stderr)
         return 2
-    h = hostile_input(int(args[0]), int(args[1]))
+    h = build(int(args[0]), int(args[1]))
     out = Path(args[2] + h.suffix)
     out.write_bytes(h.data)
     print(f"{out}: {h.case}, {len(h.data)} bytes")
+    if hasattr(h, "args"):  # an input with a command of its own
+        print("replay: metertop " + " ".join(h.args(out)))
     return 0
 
 

@@ -1,11 +1,12 @@
-"""Robustness benchmark: fuzzing, stability under dropped notes, and large input.
+"""Robustness benchmark: fuzzing (MIDI files, onset lists, recordings), stability under dropped notes, and large input.
 
 Usage::
 
     python bench/robust.py                 # make bench-robust: everything below
     python bench/robust.py --fuzz 2000 --grooves 20 --no-large   # a quicker look
+    python bench/robust.py --fuzz 0 --grooves 0 --no-large --recordings 1000   # recordings only
 
-Three parts, each reported in one table (stdout, and in full in
+Four parts, each reported in one table (stdout, and in full in
 ``bench/out/robust-<date>.json``):
 
 1. **Fuzzing.** ``--fuzz`` inputs (10,000) of the seeded stream of
@@ -15,12 +16,20 @@ Three parts, each reported in one table (stdout, and in full in
    *crash* is anything but exit 0 with strict JSON or exit 2 with one error
    line: a traceback, an uncaught exception, a warning, several lines. The
    count must be 0; each crash is listed with the command that rebuilds it.
-2. **Dropped notes.** ``--grooves`` (100) drum grooves of the accuracy
+2. **Recordings.** ``--recordings`` inputs (1,000) of the seeded stream of
+   ``bench/hostile_audio.py`` (WAV, FLAC and OGG files with odd content,
+   sample rates and channels, damaged headers and bytes, wrong suffixes) go
+   through the command each input names (``analyse``, with ``--json``,
+   ``--kit``, ``--no-kit`` or ``--band-weights``, or ``check -s 4/4``) and
+   are judged as above; ``check``'s verdicts (exit 1 and 3) count as
+   results. Inputs slower than ``SLOW_S`` (10 s) are listed too, and
+   count against the run as crashes do (exit code 1).
+3. **Dropped notes.** ``--grooves`` (100) drum grooves of the accuracy
    benchmark (``bench/grooves.py``, the evaluation seed of ``bench/run.py``)
    are analysed whole and with 5% of their notes dropped at random (seeded);
    the share whose reading (time signature and grouping) is unchanged is
    reported, against the target of 95%.
-3. **Large input**, each analysis in a fresh subprocess that reports its
+4. **Large input**, each analysis in a fresh subprocess that reports its
    own wall time and peak resident memory (``resource.getrusage``): one hour
    of continuous drumming (about 40,000 notes) beside pretty_midi's parse of
    the same file; 200,000 notes (the note limit) over four hours; two short
@@ -54,10 +63,13 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
 from hostile import chunk, hostile_input, run_cli, vlq  # noqa: E402
+from hostile_audio import hostile_recording  # noqa: E402
 
 ROOT = HERE.parent
 OUT = HERE / "out"
 FUZZ_SEED = 2026  # tests/test_robust.py uses another seed
+RECORDINGS_SEED = 4242  # the recordings stream's; tests/test_robust.py uses another
+SLOW_S = 10.0  # a recording slower than this to refuse or analyse is a finding too
 DROP_SEED = 505
 DROP_FRACTION = 0.05
 GROOVE_SEED = 20261202  # bench/run.py's SAMPLE_SEED: the evaluation grooves
@@ -65,39 +77,74 @@ GROOVE_SEED = 20261202  # bench/run.py's SAMPLE_SEED: the evaluation grooves
 
 # ---- 1. fuzzing --------------------------------------------------------------------
 
-def _fuzz_chunk(args: tuple[int, int, int]) -> list[dict]:
-    seed, lo, hi = args
-    out = []
+def _written(build, seed: int, lo: int, hi: int):
+    """``(i, input, path)`` for inputs lo..hi-1 of ``build``'s stream, each written to a file that is gone afterwards."""
     with tempfile.TemporaryDirectory(prefix="metertop-fuzz-") as folder:
         for i in range(lo, hi):
-            h = hostile_input(seed, i)
+            h = build(seed, i)
             path = Path(folder) / f"input{h.suffix}"
             path.write_bytes(h.data)
-            start = time.perf_counter()
-            outcomes = [run_cli(["analyse", "--json", str(path)] if i % 2 else ["analyse", str(path)])]
-            if h.suffix == ".mid":
-                outcomes.append(run_cli(["tracks", str(path)]))
-            seconds = time.perf_counter() - start
-            crash = next((o for o in outcomes if o.verdict == "crash"), None)
-            out.append({"index": i, "case": h.case, "family": h.family, "verdict": outcomes[0].verdict,
-                        "crash": None if crash is None else f"{crash.command}: {crash.detail}", "seconds": round(seconds, 3)})
+            yield i, h, path
             path.unlink()
+
+
+def _fuzz_chunk(args: tuple[int, int, int]) -> list[dict]:
+    out = []
+    for i, h, path in _written(hostile_input, *args):
+        start = time.perf_counter()
+        outcomes = [run_cli(["analyse", "--json", str(path)] if i % 2 else ["analyse", str(path)])]
+        if h.suffix == ".mid":
+            outcomes.append(run_cli(["tracks", str(path)]))
+        seconds = time.perf_counter() - start
+        crash = next((o for o in outcomes if o.verdict == "crash"), None)
+        out.append({"index": i, "case": h.case, "family": h.family, "verdict": outcomes[0].verdict,
+                    "crash": None if crash is None else f"{crash.command}: {crash.detail}", "seconds": round(seconds, 3)})
     return out
+
+
+def _pooled(work, n: int, seed: int, jobs: int, step: int, label: str, every: int, dead: dict) -> list[dict]:
+    """Rows of inputs 0..n-1 run by ``work`` over chunks of ``step`` in a pool of ``jobs``, sorted by index; progress
+    on stderr every ``every`` inputs.
+
+    A worker that dies (a segfault or an abort inside a C library: nothing Python can catch) breaks the pool; the
+    chunks it took down are run again one input at a time, each input whose own worker dies becomes a crash row
+    (``dead`` with its index), and the run goes on.
+    """
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from concurrent.futures.process import BrokenProcessPool
+
+    rows: list[dict] = []
+
+    def run(chunks, workers):
+        lost = []
+        with ProcessPoolExecutor(workers, mp_context=mp.get_context("spawn")) as pool:
+            futures = {pool.submit(work, c): c for c in chunks}
+            for fut in as_completed(futures):
+                try:
+                    part = fut.result()
+                except BrokenProcessPool:
+                    lost.append(futures[fut])
+                    continue
+                rows.extend(part)
+                if len(rows) % every < len(part):
+                    print(f"  {label}: {len(rows):,}/{n:,} inputs, {sum(r['crash'] is not None for r in rows)} crashes",
+                          file=sys.stderr, flush=True)
+        return lost
+
+    lost = run([(seed, lo, min(lo + step, n)) for lo in range(0, n, step)], jobs)
+    for _, lo, hi in sorted(lost):
+        for i in range(lo, hi):
+            if run([(seed, i, i + 1)], 1):
+                print(f"  {label}: input {i}: the worker process died", file=sys.stderr, flush=True)
+                rows.append({**dead, "index": i, "crash": "the worker process died (a segfault or abort in a C library)"})
+    return sorted(rows, key=lambda r: r["index"])
 
 
 def fuzz(n: int, seed: int, jobs: int) -> dict:
     """Run ``n`` hostile inputs through the command line; counts, crashes and timing."""
-    step = 50
-    chunks = [(seed, lo, min(lo + step, n)) for lo in range(0, n, step)]
     start = time.perf_counter()
-    rows: list[dict] = []
-    with mp.get_context("spawn").Pool(jobs) as pool:
-        for part in pool.imap_unordered(_fuzz_chunk, chunks):
-            rows += part
-            done = len(rows)
-            if done % 1000 < step:
-                print(f"  fuzz: {done:,}/{n:,} inputs, {sum(r['crash'] is not None for r in rows)} crashes", file=sys.stderr, flush=True)
-    rows.sort(key=lambda r: r["index"])
+    rows = _pooled(_fuzz_chunk, n, seed, jobs, step=50, label="fuzz", every=1000,
+                   dead={"case": "?", "family": "?", "verdict": "crash", "seconds": 0.0})
     crashes = [r for r in rows if r["crash"] is not None]
     verdicts = Counter((r["family"], r["verdict"]) for r in rows)
     steps = Counter(step for r in crashes for step in r["case"].split("/")[-1].split("+"))
@@ -113,7 +160,51 @@ def fuzz(n: int, seed: int, jobs: int) -> dict:
     }
 
 
-# ---- 2. dropped notes --------------------------------------------------------------
+# ---- 2. recordings -------------------------------------------------------------------
+
+def _recordings_chunk(args: tuple[int, int, int]) -> list[dict]:
+    out = []
+    for i, h, path in _written(hostile_recording, *args):
+        start = time.perf_counter()
+        outcome = h.run(path)
+        seconds = time.perf_counter() - start
+        out.append({"index": i, "case": h.case, "command": " ".join(h.command), "verdict": outcome.verdict,
+                    "crash": None if outcome.verdict != "crash" else f"{outcome.command}: {outcome.detail}",
+                    "seconds": round(seconds, 3), "bytes": len(h.data)})
+    return out
+
+
+def recordings(n: int, seed: int, jobs: int) -> dict:
+    """Run ``n`` hostile recordings through the command line; counts, crashes, slow inputs and timing."""
+    start = time.perf_counter()
+    rows = _pooled(_recordings_chunk, n, seed, jobs, step=25, label="recordings", every=250,
+                   dead={"case": "audio/?/?/?", "command": "?", "verdict": "crash", "seconds": 0.0, "bytes": 0})
+    crashes = [r for r in rows if r["crash"] is not None]
+    slow = [r for r in rows if r["seconds"] > SLOW_S]
+
+    def replay(r):
+        return f"python bench/hostile_audio.py {seed} {r['index']} /tmp/case"
+
+    by_format = Counter((r["case"].split("/")[2].split(">")[0], r["verdict"]) for r in rows)
+    return {
+        "inputs": n, "seed": seed, "crashes": len(crashes), "slow": len(slow), "slow_limit_s": SLOW_S,
+        "by_outcome": dict(sorted(Counter(r["verdict"] for r in rows).items())),
+        "by_command": dict(sorted(Counter(f"{r['command'].split()[0]} {r['verdict']}" for r in rows).items())),
+        "by_format": {f"{fmt} {verdict}": c for (fmt, verdict), c in sorted(by_format.items())},
+        "intact_analysed": sum(r["verdict"] == "analysed" for r in rows if r["case"].endswith("/intact")),
+        "intact": sum(r["case"].endswith("/intact") for r in rows),
+        "crash_cases": [{"case": r["case"], "command": r["command"], "crash": r["crash"], "replay": replay(r)} for r in crashes],
+        "slow_cases": [{"case": r["case"], "command": r["command"], "seconds": r["seconds"], "replay": replay(r)} for r in slow],
+        "wall_s": round(time.perf_counter() - start, 1),
+        "median_s_per_input": float(np.median([r["seconds"] for r in rows])) if rows else None,
+        "max_s_per_input": max((r["seconds"] for r in rows), default=None),
+        "mean_bytes": float(np.mean([r["bytes"] for r in rows])) if rows else None,
+        "slowest": sorted(({"case": r["case"], "command": r["command"], "seconds": r["seconds"]} for r in rows),
+                          key=lambda r: -r["seconds"])[:5],
+    }
+
+
+# ---- 3. dropped notes --------------------------------------------------------------
 
 def drop_notes(notes, fraction: float, rng: np.random.Generator):
     """The same NoteTable without ``round(fraction * n)`` notes chosen at random."""
@@ -170,7 +261,7 @@ def drops(n_grooves: int, jobs: int) -> dict:
     }
 
 
-# ---- 3. large input ----------------------------------------------------------------
+# ---- 4. large input ----------------------------------------------------------------
 
 def _child(mode: str, path: str) -> None:
     """Run one measurement in this (fresh) process and print its figures as JSON."""
@@ -263,6 +354,19 @@ def report(res: dict) -> str:
         lines += [f"| median time per input | {f['median_s_per_input'] * 1000:.0f} ms |", f"| wall time | {f['wall_s']:.0f} s |", ""]
         for c in f["crash_cases"][:20]:
             lines.append(f"- crash: {c['case']}: {c['crash']} (`{c['replay']}`)")
+    if "recordings" in res:
+        a = res["recordings"]
+        lines += ["## Recordings", "", "| measure | value |", "|---|---|",
+                  f"| recordings (seed {a['seed']}) | {a['inputs']:,} |", f"| **crashes** | **{a['crashes']}** |",
+                  f"| slower than {a['slow_limit_s']:g} s | {a['slow']} |"]
+        lines += [f"| {k} | {v:,} |" for k, v in a["by_command"].items()]
+        lines += [f"| intact files analysed | {a['intact_analysed']:,} of {a['intact']:,} |",
+                  f"| median / slowest time per input | {a['median_s_per_input'] * 1000:.0f} ms / {a['max_s_per_input']:.1f} s |",
+                  f"| wall time | {a['wall_s']:.0f} s |", ""]
+        for c in a["crash_cases"][:20]:
+            lines.append(f"- crash: {c['case']} ({c['command']}): {c['crash']} (`{c['replay']}`)")
+        for c in a["slow_cases"][:20]:
+            lines.append(f"- slow: {c['case']} ({c['command']}): {c['seconds']:.1f} s (`{c['replay']}`)")
     if "drops" in res:
         d = res["drops"]
         lines += ["## 5% of notes dropped", "", "| measure | value |", "|---|---|",
@@ -302,6 +406,8 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--fuzz", type=int, default=10_000, help="hostile inputs to run (0 to skip)")
     parser.add_argument("--seed", type=int, default=FUZZ_SEED)
+    parser.add_argument("--recordings", type=int, default=1_000, help="hostile recordings to run (0 to skip)")
+    parser.add_argument("--recordings-seed", type=int, default=RECORDINGS_SEED)
     parser.add_argument("--grooves", type=int, default=100, help="grooves for the dropped-notes check (0 to skip)")
     parser.add_argument("--no-large", action="store_true", help="skip the large-input measurements")
     parser.add_argument("--jobs", type=int, default=2)
@@ -314,6 +420,9 @@ def main(argv=None) -> int:
     if args.fuzz:
         print(f"fuzzing {args.fuzz:,} inputs ...", file=sys.stderr, flush=True)
         res["fuzz"] = fuzz(args.fuzz, args.seed, args.jobs)
+    if args.recordings:
+        print(f"fuzzing {args.recordings:,} recordings ...", file=sys.stderr, flush=True)
+        res["recordings"] = recordings(args.recordings, args.recordings_seed, args.jobs)
     if args.grooves:
         print(f"dropping 5% of the notes of {args.grooves} grooves ...", file=sys.stderr, flush=True)
         res["drops"] = drops(args.grooves, args.jobs)
@@ -325,7 +434,8 @@ def main(argv=None) -> int:
     print(text)
     OUT.mkdir(parents=True, exist_ok=True)
     (OUT / f"robust-{res['date'][:10]}.json").write_text(json.dumps(res, indent=1))
-    return 1 if res.get("fuzz", {}).get("crashes") else 0
+    rec = res.get("recordings", {})
+    return 1 if res.get("fuzz", {}).get("crashes") or rec.get("crashes") or rec.get("slow") else 0
 
 
 if __name__ == "__main__":

@@ -30,14 +30,19 @@ from .errors import InputError
 from .flux import FluxSettings, detect_onsets, is_kit, kit_strokes
 from .limits import LimitError
 
-__all__ = ["AUDIO_SUFFIXES", "AUDIO_MAGIC", "MAX_AUDIO_BYTES", "MAX_AUDIO_S", "read_audio", "audio_notes", "onsets_csv",
-           "is_audio_file", "require_soundfile", "recording_summary", "recording_line"]
+__all__ = ["AUDIO_SUFFIXES", "AUDIO_MAGIC", "MAX_AUDIO_BYTES", "MAX_AUDIO_S", "MIN_AUDIO_RATE", "MAX_AUDIO_RATE", "read_audio",
+           "audio_notes", "onsets_csv", "is_audio_file", "require_soundfile", "recording_summary", "recording_line"]
 
 AUDIO_SUFFIXES = (".wav", ".wave", ".flac", ".ogg", ".oga")
 # The first four bytes of the containers soundfile reads for us.
 AUDIO_MAGIC = (b"RIFF", b"RF64", b"fLaC", b"OggS")
 MAX_AUDIO_BYTES = 1024 * 1024 * 1024
 MAX_AUDIO_S = 30 * 60.0
+# Sample rates read: below 100 Hz the detector's 10 ms hop is less than a sample; 768 kHz is twice 384 kHz, the highest
+# rate of common studio converters (from memory), and far above it the 46 ms frames need FFTs of millions of points (a
+# header overwritten with 2**31 Hz took 20 s on a 12 ms file). Outside, the header is taken for damaged.
+MIN_AUDIO_RATE = 100.0
+MAX_AUDIO_RATE = 768_000.0
 _BLOCK_FRAMES = 1 << 18
 
 
@@ -64,7 +69,9 @@ def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
     ------
     InputError
         If soundfile is missing, the file is not a readable WAV, FLAC or OGG
-        file, holds no samples, or is longer than :data:`MAX_AUDIO_S`.
+        file, holds no samples or samples that are not finite, has a sample
+        rate outside :data:`MIN_AUDIO_RATE` to :data:`MAX_AUDIO_RATE`, or is
+        longer than :data:`MAX_AUDIO_S`.
     """
     sf = require_soundfile()
     path = os.fspath(path)
@@ -73,6 +80,9 @@ def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
             rate, channels, frames = float(f.samplerate), int(f.channels), int(f.frames)
             if rate <= 0 or channels <= 0:
                 raise InputError(f"{path}: not a readable recording (sample rate {rate:g}, {channels} channels)")
+            if not MIN_AUDIO_RATE <= rate <= MAX_AUDIO_RATE:
+                raise InputError(f"{path}: a sample rate of {rate:,.0f} Hz; metertop reads recordings at "
+                                 f"{MIN_AUDIO_RATE:g} Hz to {MAX_AUDIO_RATE / 1000:g} kHz (is the header damaged?)")
             if frames > MAX_AUDIO_S * rate:
                 raise LimitError(f"{path}: a recording of {frames / rate / 60:.1f} minutes; metertop analyses at most "
                                  f"{MAX_AUDIO_S / 60:g} minutes of audio at once: split it")
@@ -82,7 +92,11 @@ def read_audio(path: str | os.PathLike) -> tuple[np.ndarray, float]:
                 block = f.read(min(_BLOCK_FRAMES, frames - done), dtype="float32", always_2d=True)
                 if len(block) == 0:
                     break
-                mono[done:done + len(block)] = block.mean(axis=1) if channels > 1 else block[:, 0]
+                if not np.isfinite(block).all():  # NaN or inf in a float file, or a double beyond float32's range
+                    raise InputError(f"{path}: the recording holds samples that are not finite numbers "
+                                     "(NaN or infinity, or beyond the range of 32-bit floats)")
+                # The mean in float64: summing channels near float32's largest value would overflow.
+                mono[done:done + len(block)] = block.mean(axis=1, dtype=np.float64) if channels > 1 else block[:, 0]
                 done += len(block)
     except InputError:
         raise

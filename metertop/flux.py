@@ -169,8 +169,10 @@ class Onsets:
 def _band_slices(n_fft: int, sample_rate: float, edges_hz) -> list[slice]:
     """Bins of each band; bin 0 (DC) is left out, and a band narrower than one bin gets one."""
     n_bins = n_fft // 2 + 1
-    cut = [int(np.clip(np.ceil(e * n_fft / sample_rate), 2, n_bins - 1)) for e in edges_hz]
-    cut[1] = max(cut[1], cut[0] + 1)
+    lo, hi = (int(np.ceil(e * n_fft / sample_rate)) for e in edges_hz)
+    # At a very low sample rate both edges lie above the Nyquist frequency: the mid and high bands get the top two bins.
+    lo = int(np.clip(lo, 2, n_bins - 2))
+    cut = [lo, int(np.clip(hi, lo + 1, n_bins - 1))]
     return [slice(1, cut[0]), slice(cut[0], cut[1]), slice(cut[1], n_bins)]
 
 

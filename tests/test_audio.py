@@ -21,6 +21,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -28,6 +29,7 @@ import pytest
 from typer.testing import CliRunner
 
 from metertop.cli import app
+from metertop.audio import read_audio
 from metertop.errors import InputError
 from metertop.flux import FluxSettings, detect_onsets, onset_strength, stft_magnitude
 
@@ -40,6 +42,7 @@ BENCH = str(REPO / "bench")
 if BENCH not in sys.path:
     sys.path.insert(0, BENCH)
 
+from hostile import run_cli  # noqa: E402
 from synth import add_noise, reference_onsets, synthesise  # noqa: E402
 
 SR = 22_050
@@ -471,3 +474,90 @@ def test_damaged_recordings_never_crash(tmp_path):
             assert len(res.stderr.strip().splitlines()) == 1, (path.name, res.stderr)
     res = runner.invoke(app, ["analyse", str(tmp_path / "nan.wav")])
     assert res.exit_code == 2 and "not finite" in res.stderr
+
+
+# ---- hostile recordings that bench/robust.py --recordings turned up, kept as named cases ----
+
+def _wav_bytes(x, sr, subtype):
+    import io
+
+    buf = io.BytesIO()
+    sf.write(buf, x, sr, format="WAV", subtype=subtype)
+    return buf.getvalue()
+
+
+def test_channels_near_the_float32_limit_mix_down_without_overflow(tmp_path):
+    """Found by the recordings fuzzer: a stereo float WAV whose clicks peak at 3e38 (legal float32 samples) overflowed
+    while the channels were averaged (a RuntimeWarning). It now reads as the same clicks at -6 dBFS do: the detector
+    normalises to the peak, so the gain changes nothing (the invariance of test_gain_and_shift_invariance)."""
+    from metertop.load import load_notes
+
+    times = np.array([0.3, 0.7, 1.2, 1.5, 2.1, 2.4, 2.9, 3.3, 3.6])
+    clip = _clicks(times, length_s=4.0, amplitude=0.5)
+    (tmp_path / "quiet.wav").write_bytes(_wav_bytes(np.column_stack([clip, clip]), SR, "FLOAT"))
+    (tmp_path / "huge.wav").write_bytes(_wav_bytes(np.column_stack([clip, clip]).astype(np.float64) * 6e38, SR, "FLOAT"))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        huge = load_notes(tmp_path / "huge.wav")
+    quiet = load_notes(tmp_path / "quiet.wav")
+    np.testing.assert_array_equal(huge.onsets_s, quiet.onsets_s)
+    assert run_cli(["analyse", "--json", str(tmp_path / "huge.wav")]).verdict == "analysed"
+
+
+@pytest.mark.parametrize("case", ["inf-and-minus-inf", "double-beyond-float32"])
+def test_samples_that_are_not_finite_in_any_channel_are_refused(tmp_path, case):
+    """Found by the recordings fuzzer: +inf in one channel and -inf in the other averaged to NaN with a RuntimeWarning,
+    and a double WAV holding 1e300 (beyond float32, which the reader asks for) overflowed. Both are one error line now,
+    raised as the samples are read."""
+    clip = _clicks([0.3, 0.7, 1.2, 1.5], length_s=2.0, amplitude=0.5).astype(np.float64)
+    stereo = np.column_stack([clip, clip])
+    if case == "inf-and-minus-inf":
+        stereo[SR, :] = [np.inf, -np.inf]
+        data = _wav_bytes(stereo, SR, "FLOAT")
+    else:
+        data = _wav_bytes(stereo * 2e299, SR, "DOUBLE")
+    path = tmp_path / f"{case}.wav"
+    path.write_bytes(data)
+    with pytest.raises(InputError, match="not finite numbers"):
+        read_audio(path)
+    outcome = run_cli(["analyse", str(path)])
+    assert outcome.verdict == "refused" and str(path) in outcome.detail and "not finite" in outcome.detail, outcome
+
+
+@pytest.mark.parametrize("sr", [100, 150, 300, 1000])
+def test_onsets_at_very_low_sample_rates(sr):
+    """Found by the recordings fuzzer: below about 300 Hz both band edges lie above the Nyquist frequency, the high band
+    had no bins and the flux sum indexed past the spectrum (IndexError). Every band now keeps at least one bin, and
+    clicks at known times are found, each at most half an FFT frame early (the frame that first holds the click)."""
+    from metertop.flux import _band_slices
+
+    n_fft, _ = FluxSettings().frame_samples(sr)
+    bands = _band_slices(n_fft, sr, FluxSettings().band_edges_hz)
+    assert bands[0].start == 1 and bands[-1].stop == n_fft // 2 + 1
+    assert all(b.stop > b.start for b in bands) and all(a.stop == b.start for a, b in zip(bands, bands[1:]))
+    times = np.array([0.5, 1.0, 1.5, 2.25, 2.75, 3.5])
+    found = detect_onsets(_clicks(times, sr=sr, length_s=4.0), sr).times_s
+    assert len(found) == len(times)
+    assert np.all(times - found >= 0) and np.all(times - found <= n_fft / 2 / sr)
+
+
+@pytest.mark.parametrize("rate", [7, 0x7FFFFFFF])
+def test_damaged_sample_rate_is_refused_before_the_onset_detector(tmp_path, monkeypatch, rate):
+    """Found by the recordings fuzzer: a WAV header whose sample rate was overwritten with 7 Hz crashed the detector,
+    and with 2**31 - 1 Hz took 20 s on a 12 ms file (46 ms frames of a hundred million samples). Rates outside
+    100 Hz to 768 kHz are refused, naming the rate, before the detector runs."""
+    import metertop.audio as audio
+
+    def no_detector(*args, **kwargs):
+        raise AssertionError("the onset detector ran on a damaged sample rate")
+
+    monkeypatch.setattr(audio, "detect_onsets", no_detector)
+    data = bytearray(_wav_bytes(_clicks([0.1, 0.3, 0.5], length_s=1.0), SR, "PCM_16"))
+    assert data[12:16] == b"fmt "  # the plain 44-byte header: the rate is at byte 24 (RIFF WAVE, Microsoft)
+    data[24:28] = rate.to_bytes(4, "little")
+    path = tmp_path / "rate.wav"
+    path.write_bytes(bytes(data))
+    with pytest.raises(InputError, match=f"a sample rate of {rate:,} Hz"):
+        audio.audio_notes(path)
+    outcome = run_cli(["analyse", str(path)])
+    assert outcome.verdict == "refused" and "sample rate" in outcome.detail, outcome

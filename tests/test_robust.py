@@ -3,9 +3,10 @@
 The rule (RULES.md, "How work gets done here"): bad input gets one clear line
 ``metertop: error: ...`` and exit code 2, never a traceback; the library
 raises only :class:`metertop.InputError` for it. Inputs come from the seeded
-mutator in ``bench/hostile.py`` (damaged MIDI files and onset lists) and
-from hypothesis (onset arrays that parse but are degenerate). ``make
-bench-robust`` runs 10,000 inputs of the same stream through the full
+mutator in ``bench/hostile.py`` (damaged MIDI files and onset lists), from
+``bench/hostile_audio.py`` (odd and damaged recordings) and from hypothesis
+(onset arrays that parse but are degenerate). ``make bench-robust`` runs
+10,000 inputs of the first stream and 1,000 of the second through the full
 analysis and reports the crash count.
 """
 
@@ -70,6 +71,34 @@ def test_fuzzed_files_give_one_line_errors_or_results(tmp_path):
     assert not crashes, "\n".join(crashes)
     # The stream must exercise both outcomes, or this test proves nothing.
     assert seen["refused"] >= 200 and seen["analysed"] >= 10, seen
+
+
+RECORDINGS_SEED = 31  # bench/robust.py runs seed 4242
+N_RECORDINGS = 150  # about 10 s: most inputs are refused in milliseconds
+
+
+def test_fuzzed_recordings_give_one_line_errors_or_results(tmp_path):
+    """150 hostile recordings (bench/hostile_audio.py: odd content, rates and channels; damaged headers and bytes; wrong
+    suffixes), each under the command it names (analyse with --json, --kit, --no-kit or --band-weights, or check -s
+    4/4): a result (check's verdicts included) or one error line with exit 2, never a traceback or a warning."""
+    pytest.importorskip("soundfile")
+    from hostile_audio import hostile_recording
+
+    crashes, seen = [], {"refused": 0, "analysed": 0}
+    for i in range(N_RECORDINGS):
+        h = hostile_recording(RECORDINGS_SEED, i)
+        path = tmp_path / f"rec{i}{h.suffix}"
+        path.write_bytes(h.data)
+        outcome = h.run(path)
+        if outcome.verdict == "crash":
+            crashes.append(f"{' '.join(h.command)}: {outcome.detail} <- python bench/hostile_audio.py {RECORDINGS_SEED} {i} "
+                           f"/tmp/case  # {h.case}")
+        else:
+            seen[outcome.verdict] += 1
+        path.unlink()
+    assert not crashes, "\n".join(crashes)
+    # Both outcomes must occur, or this test proves nothing.
+    assert seen["refused"] >= 50 and seen["analysed"] >= 10, seen
 
 
 # ---- degenerate but parseable onsets, from hypothesis ----
