@@ -103,7 +103,7 @@ class FluxSettings:
     floor_percentile: float = 10.0
     kit: bool | None = None
     kit_share: float = 0.1
-    kit_levels: tuple[float, float, float, float, float] = (0.15, 0.7, 0.5, 0.3, 1.4)
+    kit_levels: tuple[float, float, float, float, float, float] = (0.15, 0.7, 0.5, 0.3, 1.2, 2.0)
     kit_percentile: float = 90.0
     band_window_s: float = 0.02
 
@@ -117,8 +117,8 @@ class FluxSettings:
             raise ValueError(f"band_weights needs three non-negative numbers (low, mid, high), not all 0; got {self.band_weights}")
         if self.compression <= 0 or not 0 <= self.alpha < 1:
             raise ValueError("compression must be positive and alpha in [0, 1)")
-        if len(self.kit_levels) != 5 or any(not np.isfinite(v) or v < 0 for v in self.kit_levels):
-            raise ValueError(f"kit_levels needs five non-negative numbers, got {self.kit_levels}")
+        if len(self.kit_levels) != 6 or any(not np.isfinite(v) or v < 0 for v in self.kit_levels):
+            raise ValueError(f"kit_levels needs six non-negative numbers, got {self.kit_levels}")
 
     def frame_samples(self, sample_rate: float) -> tuple[int, int]:
         """FFT size (a power of two of at least ``frame_s``) and hop, in samples."""
@@ -427,13 +427,15 @@ def kit_strokes(bands, settings: FluxSettings = FluxSettings()) -> tuple[np.ndar
 
     Each band's flux is divided by its ``kit_percentile`` over the
     recording's onsets, so the rules read levels relative to the
-    recording. With ``low, low_mid, mid, snare_high, crash = settings.kit_levels``:
+    recording. With ``low, low_mid, mid, snare_high, crash, crash_mid = settings.kit_levels``:
 
     - a kick (36) where the low band reaches ``low`` and ``low_mid`` times
       the mid band (a snare's body leaks a little into the low band);
     - a snare (38) where the mid band reaches ``mid`` and the high band
       ``snare_high`` (a snare's noise spans both);
-    - a crash (49) where the high band reaches ``crash``;
+    - a crash (49) where the high band reaches ``crash`` and ``crash_mid``
+      times the mid band (a loud snare under a hi-hat reaches the level
+      too, but its noise fills the mid band);
     - a hi-hat (42) where the high band reaches ``snare_high`` without a
       snare or a crash;
     - an onset with none of these gets its strongest band's drum (kick,
@@ -462,10 +464,10 @@ def kit_strokes(bands, settings: FluxSettings = FluxSettings()) -> tuple[np.ndar
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
     scale = np.percentile(b, settings.kit_percentile, axis=0)
     r = b / np.where(scale > 0, scale, np.inf)
-    low, low_mid, mid, snare_high, crash = settings.kit_levels
+    low, low_mid, mid, snare_high, crash, crash_mid = settings.kit_levels
     kick = (r[:, 0] >= low) & (r[:, 0] >= low_mid * r[:, 1])
     snare = (r[:, 1] >= mid) & (r[:, 2] >= snare_high)
-    cymbal = r[:, 2] >= crash
+    cymbal = (r[:, 2] >= crash) & (r[:, 2] >= crash_mid * r[:, 1])
     hat = (r[:, 2] >= snare_high) & ~snare & ~cymbal
     hits = np.column_stack([kick, snare, hat, cymbal])
     keys = np.array([KIT_KEYS["kick"], KIT_KEYS["snare"], KIT_KEYS["hat"], KIT_KEYS["crash"]])
