@@ -22,6 +22,7 @@ Conventions
 from __future__ import annotations
 
 import os
+from collections import Counter
 from dataclasses import replace
 
 import numpy as np
@@ -149,13 +150,8 @@ def recording_summary(notes) -> dict:
     if not drums.any():
         return {"onsets": onsets, "kit": False}
     names = {KIT_KEYS["kick"]: "kick", KIT_KEYS["snare"]: "snare", KIT_KEYS["hat"]: "hi-hat", KIT_KEYS["crash"]: "crash"}
-    keys = np.asarray(notes.pitches)[drums].tolist()
-    hits: dict[str, int] = {}
-    for name in [*names.values(), "other"]:
-        n = sum(1 for k in keys if names.get(k, "other") == name)
-        if n:
-            hits[name] = n
-    return {"onsets": onsets, "kit": True, "hits": hits}
+    counts = Counter(names.get(k, "other") for k in np.asarray(notes.pitches)[drums].tolist())
+    return {"onsets": onsets, "kit": True, "hits": {name: counts[name] for name in [*names.values(), "other"] if counts[name]}}
 
 
 def recording_line(summary: dict) -> str:
@@ -189,5 +185,7 @@ def onsets_csv(notes) -> str:
     for t, wi, d, p in zip(np.asarray(notes.onsets_s, dtype=np.float64).tolist(), w.tolist(), drums.tolist(),
                            np.asarray(notes.pitches).tolist()):
         row = f"{t:.6f}," + ("" if not np.isfinite(wi) else f"{wi:.6g}")
-        rows.append(row + (f",{p}" if d else ",") if kit else row)
+        if kit:
+            row += f",{p}" if d else ","
+        rows.append(row)
     return "\n".join(rows) + "\n"

@@ -412,7 +412,7 @@ def high_share(bands) -> float:
     total = b.sum(axis=1)
     if not len(b):
         return 0.0
-    return float(np.mean(b[:, 2] >= 0.5 * np.maximum(total, 1e-12)) * np.any(total > 0))
+    return float(np.mean(b[:, 2] >= 0.5 * np.maximum(total, 1e-12)))  # an onset without flux is not high-dominated
 
 
 def is_kit(bands, settings: FluxSettings = FluxSettings()) -> bool:

@@ -26,6 +26,8 @@ def _fail(message: str, code: int = 2) -> None:
 
 def _settings(merge_ms: float, engine: str, band_weights: str | None = None, kit: bool | None = None):
     """Pipeline settings from the shared command-line options, or a one-line error."""
+    from dataclasses import replace
+
     from ..flux import FluxSettings
     from ..persistence import ENGINES
     from ..pipeline import Settings
@@ -36,9 +38,8 @@ def _settings(merge_ms: float, engine: str, band_weights: str | None = None, kit
         _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
     audio = FluxSettings(kit=kit)
     if band_weights is not None:
-        try:
-            weights = tuple(float(v) for v in band_weights.split(","))
-            audio = FluxSettings(band_weights=weights, kit=kit)
+        try:  # replace() validates the new weights as the constructor does
+            audio = replace(audio, band_weights=tuple(float(v) for v in band_weights.split(",")))
         except ValueError:
             _fail(f"--band-weights takes three numbers LOW,MID,HIGH, not negative and not all 0 (e.g. 2,1.5,1); got '{band_weights}'")
     return Settings(merge_window_s=merge_ms / 1000.0, engine=engine, audio=audio)

@@ -12,7 +12,7 @@ from typing import List, Optional
 import typer
 
 from ..errors import MetertopError
-from .app import _fail, app
+from .app import _fail, _settings, app
 
 _SHOW_BARS = 12
 
@@ -33,18 +33,16 @@ def check_cmd(
     """Check a notated time signature against the playing: consistent (exit 0), inconsistent (1) or ambiguous (3)."""
     from .._version import __version__
     from ..check import check_file
-    from ..flux import FluxSettings
     from ..pipeline import Settings
 
-    if not merge_ms >= 0 or merge_ms > 1000:
-        _fail(f"--merge-ms must be between 0 and 1000, got {merge_ms}")
+    settings = _settings(merge_ms, Settings.engine, kit=kit)  # check has no --engine: the default one
     if plot is not None:
         from .plot import prepare_plot
 
         prepare_plot(plot, file, force)
     try:
         report = check_file(file, time_signature, tracks=list(track) if track else None,
-                            settings=Settings(merge_window_s=merge_ms / 1000.0, audio=FluxSettings(kit=kit)))
+                            settings=settings)
     except MetertopError as exc:
         message = str(exc)
         _fail(message if str(file) in message else f"{file}: {message}")
